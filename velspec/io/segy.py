@@ -1,0 +1,352 @@
+"""Reading prestack SEG-Y lines: header survey, CMP index and gathers one block at a time.
+
+This module owns every byte offset: callers get numpy arrays in SI units. Headers are read with
+segyio (one field across all traces at a time); trace samples are read through a memory map of
+the trace records, so a gather costs a fancy index into the page cache and the file is never
+loaded whole. Traces may be in any order (shot order is common).
+
+References
+----------
+SEG-Y rev 1 (2002) and SEG-Y rev 2.0 (2017) data exchange formats, SEG Technical Standards
+Committee: byte positions of the binary and trace headers, IBM and IEEE sample formats.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import segyio
+
+from ..errors import InputError
+from ..params import HeaderBytes, ReadParams
+
+TEXT_HEADER = 3200
+BINARY_HEADER = 400
+TRACE_HEADER = 240
+FEET = 0.3048
+
+# SEG-Y sample format codes we read: code -> (bytes per sample, numpy big-endian dtype).
+FORMATS = {1: (4, ">u4"), 2: (4, ">i4"), 3: (2, ">i2"), 5: (4, ">f4"), 8: (1, "i1")}
+
+# Binary-header byte positions (1-based, SEG-Y rev 1).
+_BIN_INTERVAL, _BIN_SAMPLES, _BIN_FORMAT, _BIN_UNITS, _BIN_EXTENDED = 3217, 3221, 3225, 3255, 3305
+# Trace-header byte positions that are not user-configurable (SEG-Y rev 1).
+_TR_ID, _TR_DELAY, _TR_SAMPLES, _TR_INTERVAL = 29, 109, 115, 117
+
+
+@dataclass
+class Gather:
+    """One CMP gather, live traces only, sorted by absolute offset.
+
+    Attributes
+    ----------
+    cmp : int
+        CMP number.
+    offsets : ndarray, float32 (ntr,)
+        Absolute source-receiver offsets, m.
+    data : ndarray, float32 (ntr, nsamples)
+        Trace samples, C-contiguous.
+    dropped_nan : int
+        Traces left out because they held NaN or infinite samples.
+    dropped_dead : int
+        Traces left out because they were flagged dead or were all zero.
+    """
+
+    cmp: int
+    offsets: np.ndarray
+    data: np.ndarray
+    dropped_nan: int = 0
+    dropped_dead: int = 0
+
+
+@dataclass
+class CmpIndex:
+    """Where each CMP's traces are: a compressed index over the whole line (small)."""
+
+    cmp: np.ndarray        # (ncmp,) int64 ascending
+    start: np.ndarray      # (ncmp+1,) int64 into `order`
+    order: np.ndarray      # (ntraces,) int64 trace numbers grouped by CMP, by offset within
+    offset: np.ndarray     # (ntraces,) float32 absolute offset in metres, by trace number
+    cmp_x: np.ndarray      # (ncmp,) float64 metres
+    cmp_y: np.ndarray      # (ncmp,) float64 metres
+    offset_source: str     # "header", "coordinates" or "header+coordinates"
+    binned: bool           # True when CMPs were binned from midpoints (CDP header all zero)
+
+    @property
+    def fold(self) -> np.ndarray:
+        return np.diff(self.start)
+
+
+class SegyLine:
+    """A prestack 2D line opened for reading. Use as a context manager.
+
+    Parameters
+    ----------
+    path : str or Path
+        The SEG-Y file.
+    params : ReadParams
+        Header byte positions and binning.
+
+    Raises
+    ------
+    InputError
+        The file is not SEG-Y, is truncated, has no traces, or its headers contradict each other.
+    """
+
+    def __init__(self, path: str | Path, params: ReadParams | None = None):
+        self.path = Path(path)
+        self.params = params or ReadParams()
+        self.warnings: list[str] = []
+        if not self.path.is_file():
+            raise InputError(f"{self.path}: no such file")
+        self.size = self.path.stat().st_size
+        self._read_binary_header()
+        self._survey_headers()
+        self._map_samples()
+
+    # -- opening -------------------------------------------------------------------------------
+
+    def _read_binary_header(self) -> None:
+        if self.size < TEXT_HEADER + BINARY_HEADER:
+            raise InputError(f"{self.path}: {self.size} bytes is too short for SEG-Y "
+                             f"(the textual and binary headers alone are {TEXT_HEADER + BINARY_HEADER})")
+        with open(self.path, "rb") as fh:
+            fh.seek(TEXT_HEADER)
+            binary = fh.read(BINARY_HEADER)
+
+        def field(pos, size, endian):
+            raw = binary[pos - TEXT_HEADER - 1: pos - TEXT_HEADER - 1 + size]
+            return int.from_bytes(raw, "big" if endian == "big" else "little", signed=True)
+
+        # SEG-Y is big-endian; rev 2.0 allows little-endian files, recognised by their format code.
+        self.endian = "big"
+        if field(_BIN_FORMAT, 2, "big") not in FORMATS and field(_BIN_FORMAT, 2, "little") in FORMATS:
+            self.endian = "little"
+        fmt = field(_BIN_FORMAT, 2, self.endian)
+        if fmt not in FORMATS:
+            raise InputError(f"{self.path}: does not look like SEG-Y (binary-header sample format code "
+                             f"{fmt} at byte {_BIN_FORMAT}; velspec reads codes {sorted(FORMATS)})")
+        self.sample_format = fmt
+        self.bin_samples = field(_BIN_SAMPLES, 2, self.endian)
+        self.bin_interval = field(_BIN_INTERVAL, 2, self.endian)
+        units = field(_BIN_UNITS, 2, self.endian)
+        self.feet = units == 2
+        extended = field(_BIN_EXTENDED, 2, self.endian)
+        if extended < 0:
+            raise InputError(f"{self.path}: a variable number of extended textual headers (-1) "
+                             "is not supported; rewrite the file with a fixed count")
+        self.data_offset = TEXT_HEADER + BINARY_HEADER + TEXT_HEADER * extended
+
+    def _survey_headers(self) -> None:
+        hb: HeaderBytes = self.params.headers
+        nbytes = FORMATS[self.sample_format][0]
+        if self.size == self.data_offset:
+            raise InputError(f"{self.path}: the file has headers but no traces")
+        ns = self.bin_samples
+        if ns <= 0:
+            ns = self._first_trace_field(_TR_SAMPLES)
+        if ns <= 0:
+            raise InputError(f"{self.path}: sample count is zero in both the binary header "
+                             f"(byte {_BIN_SAMPLES}) and the first trace header (byte {_TR_SAMPLES})")
+        trace_bytes = TRACE_HEADER + ns * nbytes
+        body = self.size - self.data_offset
+        if body % trace_bytes:
+            raise InputError(f"{self.path}: truncated or not fixed-length: {body} bytes of traces is not a "
+                             f"whole number of {trace_bytes}-byte traces ({ns} samples of {nbytes} bytes)")
+        self.nsamples = ns
+        self.trace_bytes = trace_bytes
+        self.ntraces = body // trace_bytes
+
+        try:
+            with segyio.open(self.path, "r", ignore_geometry=True, endian=self.endian) as f:
+                if f.tracecount != self.ntraces:
+                    raise InputError(f"{self.path}: segyio counts {f.tracecount} traces, the file size "
+                                     f"implies {self.ntraces}")
+                attr = lambda pos: np.asarray(f.attributes(pos)[:], dtype=np.int64)  # noqa: E731
+                tr_ns, tr_dt = attr(_TR_SAMPLES), attr(_TR_INTERVAL)
+                delay, trace_id = attr(_TR_DELAY), attr(_TR_ID)
+                cdp, off = attr(hb.cdp), attr(hb.offset)
+                scalar = attr(hb.coordinate_scalar)
+                sx, sy, gx, gy = attr(hb.source_x), attr(hb.source_y), attr(hb.group_x), attr(hb.group_y)
+                cx, cy = attr(hb.cdp_x), attr(hb.cdp_y)
+        except InputError:
+            raise
+        except Exception as exc:  # segyio reports malformed files as RuntimeError and friends
+            raise InputError(f"{self.path}: segyio cannot read it as SEG-Y: {exc}") from None
+
+        self._check_samples(tr_ns, tr_dt)
+        if np.any(delay != delay[0]):
+            raise InputError(f"{self.path}: delay recording time (byte {_TR_DELAY}) differs between traces "
+                             f"({delay.min()}..{delay.max()} ms); velspec needs one time zero for the line")
+        self.t_first = float(delay[0]) / 1000.0
+        self.dead = trace_id == 2  # SEG-Y trace identification code 2: dead trace
+
+        scale = np.where(scalar > 0, scalar.astype(np.float64), 1.0)
+        scale = np.where(scalar < 0, 1.0 / np.abs(scalar), scale)
+        unit = FEET if self.feet else 1.0
+        sx, sy, gx, gy, cx, cy = ((a * scale * unit) for a in (sx, sy, gx, gy, cx, cy))
+        have_coords = bool(np.any(sx) or np.any(gx) or np.any(sy) or np.any(gy))
+
+        offset = np.abs(off).astype(np.float64) * unit
+        from_coords = np.hypot(gx - sx, gy - sy)
+        zero = offset == 0
+        if np.any(zero) and have_coords:
+            offset = np.where(zero, from_coords, offset)
+            source = "coordinates" if np.all(zero) else "header+coordinates"
+        else:
+            source = "header"
+        if not np.any(offset):
+            self.warnings.append("every offset is zero (header and coordinates): coherence has no moveout "
+                                 "to measure")
+
+        mid_x, mid_y = (sx + gx) / 2, (sy + gy) / 2
+        binned = False
+        if not np.any(cdp):
+            if not have_coords:
+                raise InputError(f"{self.path}: CDP numbers (byte {hb.cdp}) and source/group coordinates "
+                                 f"(bytes {hb.source_x}/{hb.source_y}/{hb.group_x}/{hb.group_y}) are all "
+                                 "zero, so traces cannot be grouped into CMPs; give the byte that holds "
+                                 "CMP numbers in [read.headers] cdp = N")
+            cdp = self._bin_midpoints(mid_x, mid_y)
+            binned = True
+        use_cdp_xy = np.any(cx) or np.any(cy)
+        px, py = (cx, cy) if use_cdp_xy else (mid_x, mid_y)
+
+        # Group by CMP, offset within, trace number last so the order is independent of file order.
+        order = np.lexsort((np.arange(self.ntraces), offset, cdp))
+        numbers, start = np.unique(cdp[order], return_index=True)
+        start = np.append(start, self.ntraces).astype(np.int64)
+        counts = np.diff(start)
+        grouped_x, grouped_y = px[order], py[order]
+        cmp_x = np.add.reduceat(grouped_x, start[:-1]) / counts
+        cmp_y = np.add.reduceat(grouped_y, start[:-1]) / counts
+        self.index = CmpIndex(cmp=numbers.astype(np.int64), start=start, order=order.astype(np.int64),
+                              offset=offset.astype(np.float32), cmp_x=cmp_x, cmp_y=cmp_y,
+                              offset_source=source, binned=binned)
+
+    def _first_trace_field(self, pos: int) -> int:
+        with open(self.path, "rb") as fh:
+            fh.seek(self.data_offset + pos - 1)
+            return int.from_bytes(fh.read(2), self.endian, signed=True)
+
+    def _check_samples(self, tr_ns: np.ndarray, tr_dt: np.ndarray) -> None:
+        if np.any((tr_ns != 0) & (tr_ns != self.nsamples)):
+            bad = tr_ns[(tr_ns != 0) & (tr_ns != self.nsamples)][0]
+            raise InputError(f"{self.path}: trace headers (byte {_TR_SAMPLES}) give {bad} samples, the binary "
+                             f"header {self.nsamples}; velspec needs fixed-length traces")
+        bin_dt = self.bin_interval
+        tr_nonzero = tr_dt[tr_dt > 0]
+        if tr_nonzero.size and np.any(tr_nonzero != tr_nonzero[0]):
+            raise InputError(f"{self.path}: sample interval (byte {_TR_INTERVAL}) differs between traces")
+        tr_dt0 = int(tr_nonzero[0]) if tr_nonzero.size else 0
+        if bin_dt > 0 and tr_dt0 > 0 and bin_dt != tr_dt0:
+            raise InputError(f"{self.path}: sample interval is {bin_dt} us in the binary header (byte "
+                             f"{_BIN_INTERVAL}) but {tr_dt0} us in the trace headers (byte {_TR_INTERVAL})")
+        dt_us = bin_dt if bin_dt > 0 else tr_dt0
+        if dt_us <= 0:
+            raise InputError(f"{self.path}: sample interval is zero in the binary and trace headers")
+        self.dt = dt_us * 1e-6
+
+    def _bin_midpoints(self, mid_x: np.ndarray, mid_y: np.ndarray) -> np.ndarray:
+        """CMP numbers from midpoints projected on the line (first to farthest midpoint)."""
+        dx, dy = mid_x - mid_x[0], mid_y - mid_y[0]
+        far = int(np.argmax(dx * dx + dy * dy))
+        length = float(np.hypot(dx[far], dy[far]))
+        along = (dx * dx[far] + dy * dy[far]) / length if length > 0 else np.zeros_like(dx)
+        size = self.params.bin_size
+        if size <= 0:
+            steps = np.diff(np.unique(np.round(along, 2)))
+            steps = steps[steps > 0.01]
+            if steps.size == 0:
+                raise InputError(f"{self.path}: every trace has the same midpoint and the CDP header is zero; "
+                                 "there is only one CMP, set read.bin_size or the CDP byte")
+            size = float(np.min(steps))
+        self.warnings.append(f"CDP header is zero: CMPs binned from midpoints, bin size {size:g} m")
+        return np.round((along - along.min()) / size).astype(np.int64) + 1
+
+    def _map_samples(self) -> None:
+        nbytes, dtype = FORMATS[self.sample_format]
+        if self.endian == "little" and nbytes > 1:
+            dtype = "<" + dtype[1:]
+        record = np.dtype([("header", f"V{TRACE_HEADER}"), ("samples", dtype, (self.nsamples,))])
+        self._traces = np.memmap(self.path, dtype=record, mode="r", offset=self.data_offset,
+                                 shape=(self.ntraces,))
+
+    # -- reading -------------------------------------------------------------------------------
+
+    @property
+    def ncmp(self) -> int:
+        return len(self.index.cmp)
+
+    @property
+    def times(self) -> np.ndarray:
+        """Sample times from the traces' time zero, s (delay recording time honoured)."""
+        return self.t_first + self.dt * np.arange(self.nsamples)
+
+    def read_gather(self, k: int) -> Gather:
+        """Read the k-th CMP (0-based position in ``index.cmp``): live traces sorted by offset."""
+        ix = self.index
+        traces = ix.order[ix.start[k]: ix.start[k + 1]]
+        # Fancy indexing in ascending file order reads the page cache front to back.
+        sort = np.argsort(traces, kind="stable")
+        raw = self._traces["samples"][traces[sort]]
+        data = np.empty((len(traces), self.nsamples), dtype=np.float32)
+        data[sort] = _to_float32(raw, self.sample_format)
+        finite = np.isfinite(data).all(axis=1)
+        dead = self.dead[traces] | ~np.any(data != 0, axis=1)
+        dead &= finite
+        keep = finite & ~dead
+        return Gather(cmp=int(ix.cmp[k]), offsets=ix.offset[traces][keep],
+                      data=np.ascontiguousarray(data[keep]),
+                      dropped_nan=int(np.count_nonzero(~finite)), dropped_dead=int(np.count_nonzero(dead)))
+
+    def close(self) -> None:
+        self._traces = None
+
+    def __enter__(self) -> "SegyLine":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    def identity(self) -> dict:
+        """Path, size in bytes and a BLAKE2b checksum of the whole file, for the result's ``input``."""
+        digest = hashlib.blake2b(digest_size=20)
+        with open(self.path, "rb") as fh:
+            for chunk in iter(lambda: fh.read(1 << 23), b""):
+                digest.update(chunk)
+        return {"path": str(self.path.resolve()), "size": self.size, "checksum": "blake2b-160:" + digest.hexdigest(),
+                "units": "feet converted to metres" if self.feet else "metres",
+                "sample_format": self.sample_format, "endian": self.endian, "ntraces": int(self.ntraces),
+                "offset_source": self.index.offset_source, "cmp_binned_from_midpoints": self.index.binned}
+
+
+def ibm_to_float32(words: np.ndarray) -> np.ndarray:
+    """Convert IBM System/360 single-precision floats (as uint32) to IEEE float32.
+
+    value = (-1)^sign * 0.mantissa(24 bit) * 16^(exponent - 64)  (SEG-Y rev 1, format code 1).
+    """
+    words = words.astype(np.uint32, copy=False)
+    sign = np.where(words >> 31, -1.0, 1.0)
+    exponent = ((words >> 24) & 0x7F).astype(np.int32) - 64
+    mantissa = (words & 0x00FFFFFF).astype(np.float64) / float(1 << 24)
+    return (sign * mantissa * np.power(16.0, exponent)).astype(np.float32)
+
+
+def _to_float32(raw: np.ndarray, fmt: int) -> np.ndarray:
+    if fmt == 1:
+        return ibm_to_float32(raw)
+    return raw.astype(np.float32)
+
+
+def open_line(path: str | Path, params: ReadParams | None = None) -> SegyLine:
+    """Open a prestack SEG-Y line; warnings found while indexing are issued as ``UserWarning``."""
+    line = SegyLine(path, params)
+    for message in line.warnings:
+        warnings.warn(f"{os.fspath(path)}: {message}", stacklevel=2)
+    return line

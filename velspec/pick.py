@@ -1,0 +1,180 @@
+"""The pick stage: a velocity function through each coherence panel, and picks along it.
+
+A continuous stacking-velocity function is traced through the panel by dynamic programming:
+the path through a coarse grid of time nodes that maximises the summed coherence, with the
+velocity allowed to rise or fall only at bounded rates and kept inside a corridor that may vary
+with time. Picks are then put at the coherence maxima along that path and refined to sub-grid
+velocity by a parabola through the three panel values around the maximum.
+
+References
+----------
+Bellman, R., 1957, Dynamic Programming: Princeton University Press (the optimal-path recursion).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit
+
+from .params import PickParams
+
+
+@dataclass
+class PickResult:
+    """Picks and the traced function of one CMP.
+
+    Attributes
+    ----------
+    t0 : float64 (npick,)
+        Pick times, s, ascending.
+    velocity : float32 (npick,)
+        Picked stacking velocities, m/s.
+    coherence : float32 (npick,)
+        Panel value at each pick.
+    path : float32 (nt,)
+        The traced velocity function on every t0 sample, m/s.
+    """
+
+    t0: np.ndarray
+    velocity: np.ndarray
+    coherence: np.ndarray
+    path: np.ndarray
+
+
+@njit(cache=True, nogil=True)
+def _best_path(score, lo, hi):
+    """Index path maximising sum score[n, path[n]] with path[n] in lo[path[n-1]]..hi[path[n-1]].
+
+    score : float64 (nnode, nv), -inf where a velocity is outside the corridor.
+    lo, hi : int64 (nv,), inclusive range of indices reachable from each index at the next node.
+    """
+    nnode, nv = score.shape
+    acc = np.full((nnode, nv), -np.inf)
+    back = np.zeros((nnode, nv), dtype=np.int64)
+    acc[0] = score[0]
+    for n in range(1, nnode):
+        for a in range(nv):
+            if acc[n - 1, a] == -np.inf:
+                continue
+            for b in range(lo[a], hi[a] + 1):
+                cand = acc[n - 1, a] + score[n, b]
+                # Ties go to the lower previous index, so the path does not depend on loop order.
+                if cand > acc[n, b]:
+                    acc[n, b] = cand
+                    back[n, b] = a
+    path = np.empty(nnode, dtype=np.int64)
+    best = 0
+    for b in range(nv):
+        if acc[nnode - 1, b] > acc[nnode - 1, best]:
+            best = b
+    path[nnode - 1] = best
+    for n in range(nnode - 1, 0, -1):
+        path[n - 1] = back[n, path[n]]
+    return path
+
+
+def corridor(t0: np.ndarray, params: PickParams, vmin: float, vmax: float) -> tuple[np.ndarray, np.ndarray]:
+    """Lower and upper velocity bounds at each time, m/s: linear from the top to the bottom values."""
+    top_lo = params.vmin_top or vmin
+    top_hi = params.vmax_top or vmax
+    bot_lo = params.vmin_bottom or vmin
+    bot_hi = params.vmax_bottom or vmax
+    frac = (t0 - t0[0]) / max(t0[-1] - t0[0], 1e-12)
+    return top_lo + frac * (bot_lo - top_lo), top_hi + frac * (bot_hi - top_hi)
+
+
+def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray,
+                   params: PickParams) -> np.ndarray:
+    """The dynamic-programming velocity function on every t0 sample, m/s (float64)."""
+    nv, nt = panel.shape
+    dt = t0[1] - t0[0] if nt > 1 else 1.0
+    step = max(int(round(params.node_interval / dt)), 1)
+    edges = np.arange(0, nt + step, step)
+    edges[-1] = min(edges[-1], nt)
+    edges = np.unique(np.minimum(edges, nt))
+    # Node score: mean coherence over the node's samples.
+    sums = np.add.reduceat(panel.astype(np.float64), edges[:-1], axis=1)
+    score = (sums / np.diff(edges)).T.copy()
+    node_t = 0.5 * (t0[edges[:-1]] + t0[edges[1:] - 1])
+    lo_v, hi_v = corridor(node_t, params, velocities[0], velocities[-1])
+    outside = (velocities[None, :] < lo_v[:, None]) | (velocities[None, :] > hi_v[:, None])
+    # Keep at least the nearest velocity open so that a corridor narrower than the axis still works.
+    nearest = np.abs(velocities[None, :] - 0.5 * (lo_v + hi_v)[:, None]).argmin(axis=1)
+    outside[np.arange(len(node_t)), nearest] = False
+    score[outside] = -np.inf
+    dtn = step * dt
+    up = np.searchsorted(velocities, velocities + params.max_increase * dtn, side="right") - 1
+    down = np.searchsorted(velocities, velocities - params.max_decrease * dtn, side="left")
+    idx = np.arange(nv)
+    hi = np.maximum(up, idx).astype(np.int64)
+    lo = np.minimum(down, idx).astype(np.int64)
+    path = _best_path(score, lo, hi)
+    return np.interp(t0, node_t, velocities[path])
+
+
+def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params: PickParams,
+               search: int = 4) -> PickResult:
+    """Trace the velocity function and pick the coherence maxima along it.
+
+    Parameters
+    ----------
+    panel : ndarray (nv, nt)
+        Coherence panel (for instance from :func:`velspec.scan.scan_gather`).
+    velocities : ndarray (nv,)
+        Its trial velocities, m/s, ascending.
+    t0 : ndarray (nt,)
+        Its t0 axis, s.
+    params : PickParams
+        Path constraints and pick thresholds.
+    search : int
+        Half width, in velocity samples, of the neighbourhood of the path where a pick's peak
+        is looked for.
+
+    Returns
+    -------
+    PickResult
+    """
+    nv, nt = panel.shape
+    path = trace_function(panel, velocities, t0, params)
+    centre = np.clip(np.searchsorted(velocities, path), 0, nv - 1)
+    offsets = np.arange(-search, search + 1)
+    rows = np.clip(centre[None, :] + offsets[:, None], 0, nv - 1)
+    near = np.take_along_axis(panel, rows, axis=0)           # (2*search+1, nt)
+    peak_row = rows[near.argmax(axis=0), np.arange(nt)]
+    along = panel[peak_row, np.arange(nt)]
+
+    dt = t0[1] - t0[0] if nt > 1 else 1.0
+    sep = max(int(round(params.min_separation / dt)), 1)
+    is_max = np.zeros(nt, dtype=bool)
+    is_max[1:-1] = (along[1:-1] >= along[:-2]) & (along[1:-1] > along[2:])
+    candidates = np.flatnonzero(is_max & (along >= params.min_coherence) & (t0 >= params.tmin))
+    chosen: list[int] = []
+    taken = np.zeros(nt, dtype=bool)
+    for j in candidates[np.argsort(-along[candidates], kind="stable")]:
+        if not taken[max(j - sep + 1, 0): j + sep].any():
+            chosen.append(int(j))
+            taken[j] = True
+    chosen.sort()
+    times, vels, cohs = [], [], []
+    for j in chosen:
+        r = int(peak_row[j])
+        v, c = _refine(panel[:, j], velocities, r)
+        times.append(t0[j])
+        vels.append(v)
+        cohs.append(c)
+    return PickResult(t0=np.asarray(times, dtype=np.float64), velocity=np.asarray(vels, dtype=np.float32),
+                      coherence=np.asarray(cohs, dtype=np.float32), path=path.astype(np.float32))
+
+
+def _refine(column: np.ndarray, velocities: np.ndarray, r: int) -> tuple[float, float]:
+    """Sub-sample peak by a parabola through (r-1, r, r+1); the vertex mapped back to velocity."""
+    if r == 0 or r == len(column) - 1:
+        return float(velocities[r]), float(column[r])
+    a, b, c = (float(x) for x in column[r - 1: r + 2])
+    curv = a - 2.0 * b + c
+    shift = 0.5 * (a - c) / curv if curv < 0 else 0.0
+    shift = float(np.clip(shift, -0.5, 0.5))
+    v = float(np.interp(r + shift, np.arange(len(velocities)), velocities))
+    return v, b - 0.25 * (a - c) * shift
