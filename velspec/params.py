@@ -118,6 +118,9 @@ class PickParams:
         0 means the scan range.
     min_coherence : float
         Coherence below which a local maximum along the path is not picked (default 0.1).
+    min_prominence : float
+        How far a maximum must rise above the coherence between it and any higher maximum to be
+        picked (default 0.15): keeps noise bumps between events out.
     min_separation : float
         Smallest time between two picks, s (default 0.1).
     tmin : float
@@ -132,6 +135,7 @@ class PickParams:
     vmin_bottom: float = 0.0
     vmax_bottom: float = 0.0
     min_coherence: float = 0.1
+    min_prominence: float = 0.15
     min_separation: float = 0.1
     tmin: float = 0.1
 
@@ -142,6 +146,7 @@ class PickParams:
         for name in ("vmin_top", "vmax_top", "vmin_bottom", "vmax_bottom"):
             _check(_finite_nonneg(getattr(self, name)), f"{name} must be >= 0 m/s (0: the scan range)")
         _check(0 <= self.min_coherence < 1, "min_coherence must be in [0, 1)")
+        _check(0 <= self.min_prominence < 1, "min_prominence must be in [0, 1)")
         _check(_finite_positive(self.min_separation), "min_separation must be > 0 s")
         _check(_finite_nonneg(self.tmin), "tmin must be >= 0 s")
 

@@ -17,6 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 from numba import njit
+from scipy.signal import find_peaks, peak_widths
 
 from .params import PickParams
 
@@ -147,23 +148,20 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
 
     dt = t0[1] - t0[0] if nt > 1 else 1.0
     sep = max(int(round(params.min_separation / dt)), 1)
-    is_max = np.zeros(nt, dtype=bool)
-    is_max[1:-1] = (along[1:-1] >= along[:-2]) & (along[1:-1] > along[2:])
-    candidates = np.flatnonzero(is_max & (along >= params.min_coherence) & (t0 >= params.tmin))
-    chosen: list[int] = []
-    taken = np.zeros(nt, dtype=bool)
-    for j in candidates[np.argsort(-along[candidates], kind="stable")]:
-        if not taken[max(j - sep + 1, 0): j + sep].any():
-            chosen.append(int(j))
-            taken[j] = True
-    chosen.sort()
+    peaks, _ = find_peaks(along, height=params.min_coherence, prominence=params.min_prominence, distance=sep)
+    peaks = peaks[t0[peaks] >= params.tmin]
     times, vels, cohs = [], [], []
-    for j in chosen:
-        r = int(peak_row[j])
-        v, c = _refine(panel[:, j], velocities, r)
-        times.append(t0[j])
-        vels.append(v)
-        cohs.append(c)
+    if peaks.size:
+        # Semblance of a zero-phase wavelet is a plateau about the event: its centre (where the
+        # plateau falls to half its prominence on either side) is steadier than its noisy maximum.
+        _, _, left, right = peak_widths(along, peaks, rel_height=0.5)
+        centres = np.clip(np.rint(0.5 * (left + right)).astype(np.int64), 0, nt - 1)
+        for j in np.unique(centres):
+            r = int(peak_row[j])
+            v, c = _refine(panel[:, j], velocities, r)
+            times.append(t0[j])
+            vels.append(v)
+            cohs.append(c)
     return PickResult(t0=np.asarray(times, dtype=np.float64), velocity=np.asarray(vels, dtype=np.float32),
                       coherence=np.asarray(cohs, dtype=np.float32), path=path.astype(np.float32))
 
