@@ -121,6 +121,8 @@ class PickParams:
     min_prominence : float
         How far a maximum must rise above the coherence between it and any higher maximum to be
         picked (default 0.15): keeps noise bumps between events out.
+    min_live : int
+        Fewest traces that must pass the stretch mute at a pick (default 6).
     min_separation : float
         Smallest time between two picks, s (default 0.1).
     tmin : float
@@ -136,6 +138,7 @@ class PickParams:
     vmax_bottom: float = 0.0
     min_coherence: float = 0.1
     min_prominence: float = 0.15
+    min_live: int = 6
     min_separation: float = 0.1
     tmin: float = 0.1
 
@@ -147,6 +150,7 @@ class PickParams:
             _check(_finite_nonneg(getattr(self, name)), f"{name} must be >= 0 m/s (0: the scan range)")
         _check(0 <= self.min_coherence < 1, "min_coherence must be in [0, 1)")
         _check(0 <= self.min_prominence < 1, "min_prominence must be in [0, 1)")
+        _check(isinstance(self.min_live, int) and self.min_live >= 2, "min_live must be an integer >= 2")
         _check(_finite_positive(self.min_separation), "min_separation must be > 0 s")
         _check(_finite_nonneg(self.tmin), "tmin must be >= 0 s")
 

@@ -116,7 +116,8 @@ def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray,
 
 
 def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params: PickParams,
-               search: int = 4) -> PickResult:
+               search: int = 4, offsets: np.ndarray | None = None,
+               stretch_limit: float | None = None) -> PickResult:
     """Trace the velocity function and pick the coherence maxima along it.
 
     Parameters
@@ -132,6 +133,10 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
     search : int
         Half width, in velocity samples, of the neighbourhood of the path where a pick's peak
         is looked for.
+    offsets, stretch_limit : optional
+        The gather's offsets (m) and the scan's stretch limit. When given, a maximum is picked
+        only where at least ``params.min_live`` traces pass the stretch mute: with a handful of
+        traces, noise alone reaches high coherence.
 
     Returns
     -------
@@ -140,8 +145,8 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
     nv, nt = panel.shape
     path = trace_function(panel, velocities, t0, params)
     centre = np.clip(np.searchsorted(velocities, path), 0, nv - 1)
-    offsets = np.arange(-search, search + 1)
-    rows = np.clip(centre[None, :] + offsets[:, None], 0, nv - 1)
+    steps = np.arange(-search, search + 1)
+    rows = np.clip(centre[None, :] + steps[:, None], 0, nv - 1)
     near = np.take_along_axis(panel, rows, axis=0)           # (2*search+1, nt)
     peak_row = rows[near.argmax(axis=0), np.arange(nt)]
     along = panel[peak_row, np.arange(nt)]
@@ -156,9 +161,18 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         # plateau falls to half its prominence on either side) is steadier than its noisy maximum.
         _, _, left, right = peak_widths(along, peaks, rel_height=0.5)
         centres = np.clip(np.rint(0.5 * (left + right)).astype(np.int64), 0, nt - 1)
+        if offsets is not None and stretch_limit is not None:
+            # Live when x <= v t0 sqrt((1+s)^2 - 1): the stretch mute of velspec.scan.moveout.
+            reach = path * np.clip(t0, 0, None) * np.sqrt((1.0 + stretch_limit) ** 2 - 1.0)
+            live = np.searchsorted(np.sort(np.abs(offsets)), reach, side="right")
+            centres = centres[live[centres] >= params.min_live]
         for j in np.unique(centres):
             r = int(peak_row[j])
-            v, c = _refine(panel[:, j], velocities, r)
+            column = panel[:, j]
+            # A maximum at the edge of the search is a flank of something off the path, not an event.
+            if 0 < r < nv - 1 and not (column[r - 1] <= column[r] >= column[r + 1]):
+                continue
+            v, c = _refine(column, velocities, r)
             times.append(t0[j])
             vels.append(v)
             cohs.append(c)
