@@ -1,0 +1,180 @@
+"""The ``velspec`` command line: parse, validate, call the library, report.
+
+User errors (our own exceptions, bad options) become one ``velspec: error: ...`` line on stderr
+and exit status 2; ``--debug`` shows the traceback instead.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import warnings
+from pathlib import Path
+
+from . import __version__
+from .errors import ParameterError, VelspecError
+
+EXIT_OK, EXIT_DIFFERENT, EXIT_USAGE = 0, 1, 2
+
+CAUTION = ("velspec gives a first-pass velocity field: qualified people must review it before it is used "
+           "for depth conversion or well planning; local regulations and licensed practice prevail.")
+
+
+class UsageError(VelspecError):
+    """Bad command-line usage."""
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message):  # one line, our prefix, exit 2
+        raise UsageError(f"{message} (see velspec {self.prog.split()[-1]} --help)"
+                         if " " in self.prog else f"{message} (see velspec --help)")
+
+
+def _build_parser() -> argparse.ArgumentParser:
+    p = _Parser(prog="velspec", description="First-pass velocity analysis of prestack 2D SEG-Y lines.",
+                epilog=CAUTION)
+    p.add_argument("--version", action="version", version=f"velspec {__version__}")
+    p.add_argument("--debug", action="store_true", help="show a traceback on error")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+
+    run = sub.add_parser("run", help="velocity spectra, picks and velocity fields for a line",
+                         description="Velocity spectra for every CMP, automatic picks, stacking and "
+                                     "interval velocity fields, written to one HDF5 result file.",
+                         epilog=CAUTION)
+    run.add_argument("line", metavar="LINE.sgy", help="prestack 2D line, SEG-Y rev 1 or rev 2.0")
+    run.add_argument("--out", required=True, metavar="RESULT.h5", help="result file to write")
+    run.add_argument("--config", metavar="FILE.toml", help="parameters; the command line wins")
+    run.add_argument("--vmin", type=float, metavar="M/S", help="lowest trial stacking velocity (default 1400)")
+    run.add_argument("--vmax", type=float, metavar="M/S", help="highest trial stacking velocity (default 6000)")
+    run.add_argument("--nvel", type=int, metavar="N", help="number of trial velocities (default 120)")
+    run.add_argument("--threads", type=int, metavar="N", help="threads for the kernels (default: all cores)")
+    run.add_argument("--force", action="store_true", help="overwrite an existing result")
+    run.add_argument("--quiet", action="store_true", help="no progress bar")
+    run.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+
+    demo = sub.add_parser("demo", help="generate a synthetic line and analyse it",
+                          description="Makes a synthetic 2D line (an invented shelf-basin scenario), runs "
+                                      "the whole analysis on it and writes the result and a QC picture.",
+                          epilog=CAUTION)
+    demo.add_argument("--out", default="velspec-demo", metavar="DIR", help="folder to create (default velspec-demo)")
+    demo.add_argument("--threads", type=int, metavar="N", help="threads for the kernels (default: all cores)")
+    demo.add_argument("--force", action="store_true", help="replace an existing folder")
+    demo.add_argument("--quiet", action="store_true", help="no progress bar")
+    demo.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+
+    ins = sub.add_parser("inspect", help="survey the headers of a line before a long run",
+                         description="Traces, CMP range, fold, offsets, sample interval, byte positions "
+                                     "used, and warnings for anything odd.")
+    ins.add_argument("line", metavar="LINE.sgy")
+    ins.add_argument("--config", metavar="FILE.toml", help="header byte positions in [read.headers]")
+    ins.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = sys.argv[1:] if argv is None else argv
+    debug = "--debug" in argv
+    try:
+        args = _build_parser().parse_args(argv)
+        if args.command is None:
+            raise UsageError("a command is needed: run, demo or inspect (see velspec --help)")
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", UserWarning)
+            status = {"run": _cmd_run, "demo": _cmd_demo, "inspect": _cmd_inspect}[args.command](args)
+        for w in caught:
+            if issubclass(w.category, UserWarning):
+                print(f"velspec: warning: {w.message}", file=sys.stderr)
+        return status
+    except VelspecError as exc:
+        if debug:
+            raise
+        print(f"velspec: error: {exc}", file=sys.stderr)
+        return EXIT_USAGE
+    except KeyboardInterrupt:
+        print("velspec: error: interrupted; no output was written", file=sys.stderr)
+        return EXIT_USAGE
+
+
+# -- commands ---------------------------------------------------------------------------------
+
+def _run_params(args):
+    from .params import RunParams, load_toml
+
+    params = load_toml(args.config) if getattr(args, "config", None) else RunParams()
+    params = params.with_overrides(scan__vmin=getattr(args, "vmin", None), scan__vmax=getattr(args, "vmax", None),
+                                   scan__nvel=getattr(args, "nvel", None), threads=getattr(args, "threads", None))
+    _check_threads(params.threads)
+    return params.validate()
+
+
+def _check_threads(threads: int) -> None:
+    cores = os.cpu_count() or 1
+    if threads is not None and (threads < 0 or threads > max(cores, 1) * 4):
+        raise ParameterError(f"--threads must be between 0 (all cores) and {cores * 4}, got {threads}")
+
+
+def _progress(quiet: bool, label: str):
+    if quiet or not sys.stderr.isatty():
+        return None
+    from tqdm import tqdm
+
+    def factory(total):
+        bar = tqdm(total=total, unit="CMP", desc=label, file=sys.stderr, leave=False, dynamic_ncols=True)
+        return bar.update, bar.close
+
+    return factory
+
+
+def _cmd_run(args) -> int:
+    from .io.result import write_result
+    from .pipeline import run_line
+
+    out = Path(args.out)
+    _check_output_file(out, args.force)
+    if not Path(args.line).is_file():
+        raise UsageError(f"{args.line}: no such file")
+    params = _run_params(args)
+    result = run_line(args.line, params, progress_factory=_progress(args.quiet, "scanning"))
+    for message in result.warnings:
+        print(f"velspec: warning: {message}", file=sys.stderr)
+    write_result(out, result, force=args.force)
+    if not args.quiet:
+        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {len(result.picks['t0'])} picks)", file=sys.stderr)
+    return EXIT_OK
+
+
+def _cmd_demo(args) -> int:
+    from .demo import run_demo
+
+    _check_threads(args.threads)
+    out = Path(args.out)
+    if out.exists() and not args.force:
+        raise UsageError(f"{out} exists; use --force to replace it or --out to choose another folder")
+    summary = run_demo(out, threads=args.threads or 0, force=args.force,
+                       progress_factory=_progress(args.quiet, "demo"))
+    print(summary)
+    return EXIT_OK
+
+
+def _cmd_inspect(args) -> int:
+    from .inspect import survey
+    from .params import RunParams, load_toml
+
+    params = load_toml(args.config) if args.config else RunParams()
+    params.read.validate()
+    print(survey(args.line, params.read))
+    return EXIT_OK
+
+
+def _check_output_file(out: Path, force: bool) -> None:
+    if out.exists() and not force:
+        raise UsageError(f"{out} exists; use --force to overwrite it")
+    if out.exists() and out.is_dir():
+        raise UsageError(f"{out} is a folder; give a file name for the result")
+    if not out.parent.exists():
+        raise UsageError(f"folder {out.parent} does not exist; create it first")
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,67 @@
+"""``velspec demo``: a synthetic line, the whole analysis, a result file and a QC picture."""
+
+from __future__ import annotations
+
+import os
+import shutil
+from pathlib import Path
+
+import numpy as np
+
+from .cli import CAUTION
+from .io.result import read_result, write_result
+from .params import RunParams
+from .pipeline import run_line
+from .qc import coherence_panel_png
+from .synth import demo_spec, make_line
+
+
+def run_demo(out: str | Path, threads: int = 0, force: bool = False, progress_factory=None) -> str:
+    """Build the demo folder ``out`` (line, result, picture) and return a short summary.
+
+    Everything is made in ``OUT.partial`` and renamed into place at the end, so an interrupted
+    demo leaves no half-made folder behind.
+    """
+    out = Path(out)
+    tmp = out.with_name(out.name + ".partial")
+    if tmp.exists():
+        shutil.rmtree(tmp)
+    tmp.mkdir(parents=True)
+    try:
+        spec = demo_spec()
+        line_path = tmp / "demo_line.sgy"
+        truth = make_line(line_path, spec)
+        params = RunParams(threads=threads).validate()
+        result = run_line(line_path, params, progress_factory=progress_factory)
+        write_result(tmp / "result.h5", result)
+        stored = read_result(tmp / "result.h5")
+        kept = stored["spectra/cmp"]
+        cmp = int(kept[len(kept) // 2])
+        row = int(np.flatnonzero(np.asarray(truth.cmp) == cmp)[0])
+        picture = coherence_panel_png(stored, cmp, tmp / f"cmp_{cmp}_coherence.png",
+                                      truth=(truth.t0[row], truth.vrms[row]))
+        summary = _summary(stored, truth, cmp)
+        if out.exists():
+            if not force:
+                raise FileExistsError(out)
+            shutil.rmtree(out) if out.is_dir() else out.unlink()
+        os.replace(tmp, out)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    files = "\n".join(f"  {out / p.name}" for p in (line_path, Path("result.h5"), picture))
+    return f"{summary}\nwrote:\n{files}\n{CAUTION}"
+
+
+def _summary(result: dict, truth, cmp: int) -> str:
+    row = int(np.flatnonzero(result["cmp"] == cmp)[0])
+    trow = int(np.flatnonzero(np.asarray(truth.cmp) == cmp)[0])
+    t0, vrms = result["t0"], result["vrms"][row]
+    lines = [f"velspec demo: {len(result['cmp'])} CMPs analysed, {len(result['picks/t0'])} picks",
+             f"CMP {cmp}: picked stacking velocity against the model's RMS velocity",
+             "   t0 (s)   model RMS (m/s)   picked (m/s)   difference"]
+    for tt, vt in zip(truth.t0[trow], truth.vrms[trow]):
+        if tt <= t0[-1]:
+            vp = float(np.interp(tt, t0, vrms))
+            lines.append(f"   {tt:6.3f}   {vt:15.0f}   {vp:12.0f}   {100 * (vp - vt) / vt:+8.1f} %")
+    return "\n".join(lines)
