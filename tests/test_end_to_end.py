@@ -115,3 +115,29 @@ def test_sonic_log_model_f03_02(tmp_path):
     diff = np.abs(picked_at(result, 0, t0[use]) - vrms[use]) / vrms[use]
     print(f"F03-02 model: worst vs exact stacking velocity {100 * worst:.2f}%, "
           f"worst vs the log's RMS velocity {100 * diff.max():.2f}%")
+
+
+def test_nonhyperbolic_run_writes_eta_and_nmo_velocity(tmp_path):
+    # In flat isotropic layers the x^2 coefficient of t^2(x) is 1/vrms^2 (Taner & Koehler, 1969),
+    # so the NMO velocity of a nonhyperbolic scan over a spread of about twice the depth stays
+    # close to the RMS velocity, and the eta it trades against is small and positive
+    # (Alkhalifah & Tsvankin, 1995, Geophysics 60, 1550-1566).
+    from velspec.io.result import read_result, write_result
+    from velspec.params import ScanParams
+
+    spec = LineSpec(ncmp=2, snr=8.0, nsamples=900, channels=160, seed=1)
+    truth = make_line(tmp_path / "long.sgy", spec)
+    params = RunParams(scan=ScanParams(moveout="nonhyperbolic", stretch_limit=1.0, vmax=5000.0,
+                                       neta=11, eta_max=0.3)).validate()
+    result = run_line(tmp_path / "long.sgy", params)
+    write_result(tmp_path / "r.h5", result)
+    stored = read_result(tmp_path / "r.h5")
+    assert stored["eta"].shape == stored["vrms"].shape
+    assert stored["picks/eta"].shape == stored["picks/t0"].shape
+    assert stored["eta"].min() >= 0.0 and stored["eta"].max() <= 0.3
+    for row in range(2):
+        use = truth.t0[row] >= 0.5
+        v = np.interp(truth.t0[row][use], result.t0, result.vrms[row])
+        assert np.all(np.abs(v - truth.vrms[row][use]) / truth.vrms[row][use] < 0.02)
+        eta = np.interp(truth.t0[row][use], result.t0, result.eta[row])
+        assert np.median(eta) < 0.15

@@ -78,6 +78,13 @@ class ScanParams:
         Length of the sliding time window over which coherence is summed, s (default 0.040).
     stretch_limit : float
         NMO-stretch mute: samples with (t - t0)/t0 above this are left out (default 0.5).
+    moveout : str
+        ``"hyperbolic"`` or ``"nonhyperbolic"`` (Alkhalifah & Tsvankin, 1995: adds an eta axis,
+        for spreads longer than about the depth).
+    eta_max : float
+        Largest anellipticity scanned by the nonhyperbolic moveout (default 0.3).
+    neta : int
+        Number of eta values from 0 to eta_max (default 16).
     """
 
     measure: str = "semblance"
@@ -87,6 +94,9 @@ class ScanParams:
     axis: str = "velocity"
     window: float = 0.040
     stretch_limit: float = 0.5
+    moveout: str = "hyperbolic"
+    eta_max: float = 0.3
+    neta: int = 16
 
     def validate(self) -> None:
         from .scan import MEASURES
@@ -100,6 +110,9 @@ class ScanParams:
         _check(_finite_positive(self.window) and self.window <= 1.0, "window must be in (0, 1] s")
         _check(_finite_positive(self.stretch_limit) and self.stretch_limit <= 10,
                "stretch_limit must be in (0, 10]")
+        _check(self.moveout in ("hyperbolic", "nonhyperbolic"), "moveout must be 'hyperbolic' or 'nonhyperbolic'")
+        _check(_finite_nonneg(self.eta_max) and self.eta_max <= 1.0, "eta_max must be in [0, 1]")
+        _check(isinstance(self.neta, int) and 2 <= self.neta <= 200, "neta must be an integer in 2..200")
 
 
 @dataclass(frozen=True)

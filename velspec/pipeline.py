@@ -40,6 +40,7 @@ class CmpOutcome:
     dropped_dead: int
     picks: PickResult | None  # None when the CMP was skipped
     panel: np.ndarray | None = None
+    pick_eta: np.ndarray | None = None  # anellipticity at each pick (nonhyperbolic scan only)
 
 
 @dataclass
@@ -52,12 +53,20 @@ class LineResult:
     t0: np.ndarray
     vrms: np.ndarray
     vint: np.ndarray
+    eta: np.ndarray | None
     picks: dict[str, np.ndarray]
     qc: dict[str, np.ndarray]
     spectra: dict[str, np.ndarray]
     depth: dict[str, np.ndarray]
     attrs: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+
+
+def eta_axis(scan) -> np.ndarray | None:
+    """Anellipticity values of a nonhyperbolic scan, or None for the hyperbolic law."""
+    if scan.moveout != "nonhyperbolic":
+        return None
+    return np.linspace(0.0, scan.eta_max, scan.neta)
 
 
 def spectra_positions(ncmp: int, keep: int) -> np.ndarray:
@@ -76,10 +85,19 @@ def analyse_gather(gather: Gather, times: np.ndarray, dt: float, params: RunPara
     if live < MIN_LIVE:
         return outcome
     sp = params.scan
+    etas = eta_axis(sp)
     panel = scan_gather(gather.data, gather.offsets, dt, float(times[0]), velocities, measure=sp.measure,
-                        window=sp.window, stretch_limit=sp.stretch_limit)
+                        window=sp.window, stretch_limit=sp.stretch_limit, etas=etas)
+    if etas is not None:
+        # Pick on the best eta at each (v, t0); read each pick's eta back from where it peaked.
+        best = panel.argmax(axis=0)
+        panel = panel.max(axis=0)
     outcome.picks = pick_panel(panel, velocities, times, params.pick, offsets=gather.offsets,
                                stretch_limit=sp.stretch_limit)
+    if etas is not None:
+        rows = np.abs(velocities[None, :] - outcome.picks.velocity[:, None]).argmin(axis=1)
+        cols = np.searchsorted(times, outcome.picks.t0 - 1e-9)
+        outcome.pick_eta = etas[best[rows, cols]].astype(np.float32)
     if keep_panel:
         outcome.panel = panel
     return outcome
@@ -113,6 +131,7 @@ def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams) -> 
     forced = np.zeros((len(analysed), nt), dtype=np.uint8)
     forced_count = np.zeros(len(analysed), dtype=np.int32)
     no_picks = np.zeros(len(analysed), dtype=np.uint8)
+    eta = np.zeros((len(analysed), nt), dtype=np.float32) if params.scan.moveout == "nonhyperbolic" else None
     for row, o in enumerate(analysed):
         p = o.picks
         pick_t, pick_v = p.t0, p.velocity
@@ -125,9 +144,11 @@ def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams) -> 
         vrms[row], vint[row], vint_raw[row] = f.vrms, f.vint, f.vint_raw
         forced[row] = f.forced
         forced_count[row] = f.forced_count
+        if eta is not None and o.pick_eta is not None and o.pick_eta.size:
+            eta[row] = np.interp(t0, o.picks.t0, o.pick_eta)   # held constant beyond the end picks
     z, t_of_z, vint_z = depth_fields(t0, vint, params.interval.dz)
     return {"vrms": vrms, "vint": vint, "vint_raw": vint_raw, "forced": forced, "forced_count": forced_count,
-            "no_picks": no_picks, "z": z, "depth_t0": t_of_z, "depth_vint": vint_z}
+            "no_picks": no_picks, "eta": eta, "z": z, "depth_t0": t_of_z, "depth_vint": vint_z}
 
 
 def run_line(path: str | Path, params: RunParams, progress_factory: Callable | None = None) -> LineResult:
@@ -187,6 +208,8 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
         "skipped_cmp": np.array([o.cmp for o in skipped], dtype=np.int64),
         "skipped_nan_traces": np.array([o.dropped_nan for o in skipped], dtype=np.int32),
     }
+    if fields["eta"] is not None:
+        picks["eta"] = np.concatenate([o.pick_eta for o in analysed]).astype(np.float32)
     kept = [o for o in analysed if o.panel is not None]
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
     spectra = {
@@ -204,7 +227,7 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
         "nan_traces": nan_traces,
     }
     return LineResult(cmp=ix.cmp[rows], cmp_x=ix.cmp_x[rows], cmp_y=ix.cmp_y[rows], t0=t0,
-                      vrms=fields["vrms"], vint=fields["vint"], picks=picks, qc=qc, spectra=spectra,
+                      vrms=fields["vrms"], vint=fields["vint"], eta=fields["eta"], picks=picks, qc=qc, spectra=spectra,
                       depth={"z": fields["z"], "t0": fields["depth_t0"], "vint": fields["depth_vint"]},
                       attrs=attrs, warnings=warnings_out)
 

@@ -21,7 +21,7 @@ from ..errors import InputError
 
 UNITS = {
     "cmp": "1", "cmp_x": "m", "cmp_y": "m", "t0": "s", "vrms": "m/s", "vint": "m/s",
-    "picks/cmp": "1", "picks/t0": "s", "picks/vrms": "m/s", "picks/coherence": "1", "picks/sigma": "m/s",
+    "picks/cmp": "1", "picks/t0": "s", "picks/vrms": "m/s", "picks/coherence": "1", "picks/sigma": "m/s", "eta": "1", "picks/eta": "1",
     "qc/live_traces": "1", "qc/nan_traces": "1", "qc/dead_traces": "1", "qc/no_picks": "1",
     "qc/forced_count": "1", "qc/vint_forced": "1", "qc/vint_raw": "m/s", "qc/path": "m/s",
     "qc/skipped_cmp": "1", "qc/skipped_nan_traces": "1",
@@ -32,6 +32,7 @@ UNITS = {
 DESCRIPTIONS = {
     "vrms": "stacking velocity: best-fit hyperbola over the offsets used; t0*vrms^2 linear between picks",
     "vint": "constrained Dix interval velocity in time, inside the physical range",
+    "eta": "anellipticity of the nonhyperbolic moveout (Alkhalifah & Tsvankin, 1995), linear between picks",
     "qc/vint_raw": "unconstrained Dix interval velocity, signed square root (negative: imaginary)",
     "qc/vint_forced": "1 where the physical bounds changed vint by more than 1 m/s",
     "qc/path": "traced dynamic-programming velocity function on every t0 sample",
@@ -63,6 +64,8 @@ def write_result(path: str | Path, result, force: bool = False) -> Path:
                 h5.attrs[key] = json.dumps(value, sort_keys=True) if isinstance(value, dict) else value
             for name in ("cmp", "cmp_x", "cmp_y", "t0", "vrms", "vint"):
                 _put(h5, name, getattr(result, name))
+            if getattr(result, "eta", None) is not None:
+                _put(h5, "eta", result.eta)
             for group, content in (("picks", result.picks), ("qc", result.qc), ("spectra", result.spectra),
                                    ("depth", result.depth)):
                 for name, value in content.items():
