@@ -201,3 +201,26 @@ def test_inspect_reports_the_line(line, capsys):
     status, out, _ = run(["inspect", line], capsys)
     assert status == 0
     assert "CMPs" in out and "8 from 1001 to 1008" in out and "4 ms" in out
+
+
+def test_demo_builds_its_folder(tmp_path, capsys):
+    out = tmp_path / "demo"
+    status, text, err = run(["demo", "--out", out, "--quiet"], capsys)
+    assert status == 0, err
+    names = sorted(p.name for p in out.iterdir())
+    assert "result.h5" in names and "demo_line.sgy" in names
+    png = [n for n in names if n.endswith(".png")]
+    assert len(png) == 1 and (out / png[0]).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert "first-pass" in text and "qualified" in text
+    assert not (tmp_path / "demo.partial").exists()
+    status, _, err = run(["demo", "--out", out], capsys)
+    assert_user_error(status, err, "exists", "--force")
+
+
+def test_thread_count_does_not_change_the_result(line, tmp_path, capsys):
+    for n in (1, 2):
+        status, _, err = run(["run", line, "--out", tmp_path / f"t{n}.h5", "--threads", n, "--quiet"], capsys)
+        assert status == 0, err
+    with h5py.File(tmp_path / "t1.h5", "r") as a, h5py.File(tmp_path / "t2.h5", "r") as b:
+        for name in ("vrms", "vint", "picks/t0", "picks/vrms", "spectra/coherence"):
+            assert np.array_equal(a[name][:], b[name][:]), name
