@@ -235,4 +235,5 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
 def _set_threads(threads: int) -> None:
     import numba
 
-    numba.set_num_threads(threads if threads > 0 else numba.config.NUMBA_NUM_THREADS)
+    most = numba.config.NUMBA_NUM_THREADS
+    numba.set_num_threads(min(threads, most) if threads > 0 else most)
