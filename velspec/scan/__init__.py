@@ -2,7 +2,7 @@
 
 Public functions take and return numpy arrays. The measure and the moveout law are looked up by
 name in :data:`MEASURES` and :data:`velspec.scan.moveout.LAWS`; the numba kernels are in
-:mod:`velspec.scan.kernels`.
+:mod:`velspec.scan.kernels` (semblance) and :mod:`velspec.scan.measures` (the others).
 """
 
 from __future__ import annotations
@@ -12,7 +12,7 @@ from typing import Callable
 
 import numpy as np
 
-from . import kernels
+from . import kernels, measures
 from .moveout import LAWS
 
 
@@ -27,6 +27,17 @@ class Measure:
 
 MEASURES: dict[str, Measure] = {
     "semblance": Measure(kernels.semblance, "classic semblance (Neidell & Taner, 1971)"),
+    "ab-semblance": Measure(
+        measures.ab_semblance,
+        "semblance of an A + B x^2 amplitude trend, polarity reversal included "
+        "(Sarkar et al., 2002; Fomel, 2009)"),
+    "cross-correlation": Measure(
+        measures.crosscorrelation_sum,
+        "mean normalised cross-correlation of trace pairs, -1/(M-1)..1 (Neidell & Taner, 1971)",
+        bounded=False),
+    "weighted-semblance": Measure(
+        measures.weighted_semblance,
+        "AB semblance with each sample weighted by its fit, narrower peaks (Luo & Hale, 2012)"),
 }
 
 
