@@ -1,9 +1,9 @@
 """Reading prestack SEG-Y lines: header survey, CMP index and gathers one block at a time.
 
 This module owns every byte offset: callers get numpy arrays in SI units. Headers are read with
-segyio (one field across all traces at a time); trace samples are read through a memory map of
-the trace records, so a gather costs a fancy index into the page cache and the file is never
-loaded whole. Traces may be in any order (shot order is common).
+segyio (one field across all traces at a time); a gather's samples are read with one positioned
+read per trace, so only one block of traces is ever in memory and the file is never loaded
+whole. Traces may be in any order (shot order is common).
 
 References
 ----------
@@ -273,9 +273,24 @@ class SegyLine:
         nbytes, dtype = FORMATS[self.sample_format]
         if self.endian == "little" and nbytes > 1:
             dtype = "<" + dtype[1:]
-        record = np.dtype([("header", f"V{TRACE_HEADER}"), ("samples", dtype, (self.nsamples,))])
-        self._traces = np.memmap(self.path, dtype=record, mode="r", offset=self.data_offset,
-                                 shape=(self.ntraces,))
+        self._sample_dtype = np.dtype(dtype)
+        self._fd = os.open(self.path, os.O_RDONLY)
+
+    def _read_samples(self, traces: np.ndarray) -> np.ndarray:
+        """Raw samples of the given traces (ascending trace numbers), one positioned read each.
+
+        Explicit reads rather than a memory map keep the resident memory to one block of traces,
+        however long the line.
+        """
+        count = self.nsamples * self._sample_dtype.itemsize
+        out = np.empty((len(traces), self.nsamples), dtype=self._sample_dtype)
+        view = out.view(np.uint8).reshape(len(traces), count)
+        for row, i in enumerate(traces):
+            pos = self.data_offset + int(i) * self.trace_bytes + TRACE_HEADER
+            got = os.preadv(self._fd, [view[row]], pos)
+            if got != count:
+                raise InputError(f"{self.path}: trace {int(i)} could not be read whole (file changed?)")
+        return out
 
     # -- reading -------------------------------------------------------------------------------
 
@@ -292,9 +307,9 @@ class SegyLine:
         """Read the k-th CMP (0-based position in ``index.cmp``): live traces sorted by offset."""
         ix = self.index
         traces = ix.order[ix.start[k]: ix.start[k + 1]]
-        # Fancy indexing in ascending file order reads the page cache front to back.
+        # Reading in ascending file order walks the file front to back.
         sort = np.argsort(traces, kind="stable")
-        raw = self._traces["samples"][traces[sort]]
+        raw = self._read_samples(traces[sort])
         data = np.empty((len(traces), self.nsamples), dtype=np.float32)
         data[sort] = _to_float32(raw, self.sample_format)
         finite = np.isfinite(data).all(axis=1)
@@ -306,7 +321,9 @@ class SegyLine:
                       dropped_nan=int(np.count_nonzero(~finite)), dropped_dead=int(np.count_nonzero(dead)))
 
     def close(self) -> None:
-        self._traces = None
+        if getattr(self, "_fd", None) is not None:
+            os.close(self._fd)
+            self._fd = None
 
     def __enter__(self) -> "SegyLine":
         return self
