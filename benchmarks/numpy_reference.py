@@ -1,9 +1,10 @@
 """Plain-NumPy semblance: the way a careful user writes it, for cross-checks and speed ratios.
 
-float32, vectorised over traces and samples with ``np.take_along_axis``, one trial velocity at a
-time, no Python loop over samples or traces. Same definition as ``velspec.scan.kernels.semblance``
-(Neidell & Taner, 1971): S = sum_W (sum_i a_i)^2 / sum_W (N sum_i a_i^2), N live traces after the
-NMO-stretch mute, samples with fewer than two live traces left out.
+float32 throughout, vectorised over traces and samples (one flat ``take`` per interpolation
+end point), one trial velocity at a time, no Python loop over samples or traces. Same
+definition as ``velspec.scan.kernels.semblance`` (Neidell & Taner, 1971):
+S = sum_W (sum_i a_i)^2 / sum_W (N sum_i a_i^2), N live traces after the NMO-stretch mute,
+samples with fewer than two live traces left out.
 """
 
 import numpy as np
@@ -11,24 +12,29 @@ import numpy as np
 
 def semblance_reference(data, offsets, dt, t_first, velocities, window=0.040, stretch_limit=0.5):
     """Semblance panel (nv, ns) float32 of one gather, computed with NumPy only."""
-    data = np.asarray(data, dtype=np.float32)
+    data = np.ascontiguousarray(data, dtype=np.float32)
     ntr, ns = data.shape
-    x = np.abs(np.asarray(offsets, dtype=np.float32))[:, None]
+    flat = data.ravel()
+    row_start = (np.arange(ntr, dtype=np.intp) * ns)[:, None]
+    x2 = (np.abs(np.asarray(offsets, dtype=np.float32)) ** 2)[:, None]
     t0 = (t_first + dt * np.arange(ns, dtype=np.float64)).astype(np.float32)[None, :]
+    t02 = t0 * t0
     half = max(int(round(window / dt / 2.0)), 0)
     box = np.ones(2 * half + 1)
     out = np.empty((len(velocities), ns), dtype=np.float32)
     positive = t0 > 0
     safe_t0 = np.where(positive, t0, np.float32(1))
+    inv_dt = np.float32(1.0 / dt)
     for iv, v in enumerate(np.asarray(velocities, dtype=np.float32)):
-        tx = np.sqrt(t0 * t0 + (x / v) ** 2)
-        pos = (tx - np.float32(t_first)) / np.float32(dt)
+        tx = np.sqrt(t02 + x2 / (v * v))
+        pos = (tx - np.float32(t_first)) * inv_dt
         live = positive & ((tx - t0) / safe_t0 <= stretch_limit) & (pos <= ns - 1)
-        k = np.clip(np.floor(pos), 0, ns - 2).astype(np.int64)
+        k = np.clip(np.floor(pos), 0, ns - 2)           # float32
         f = pos - k
-        a0 = np.take_along_axis(data, k, axis=1)
-        a1 = np.take_along_axis(data, k + 1, axis=1)
-        a = np.where(live, a0 + f * (a1 - a0), np.float32(0))
+        idx = k.astype(np.intp) + row_start
+        a0 = flat.take(idx)
+        a = a0 + f * (flat.take(idx + 1) - a0)
+        a *= live
         n = live.sum(axis=0)
         stack = a.sum(axis=0)
         energy = (a * a).sum(axis=0)
