@@ -167,17 +167,18 @@ class SegyLine:
                 if f.tracecount != self.ntraces:
                     raise InputError(f"{self.path}: segyio counts {f.tracecount} traces, the file size "
                                      f"implies {self.ntraces}")
-                attr = lambda pos: np.asarray(f.attributes(pos)[:], dtype=np.int64)  # noqa: E731
-                tr_ns, tr_dt = attr(_TR_SAMPLES), attr(_TR_INTERVAL)
-                delay, trace_id = attr(_TR_DELAY), attr(_TR_ID)
-                cdp, off = attr(hb.cdp), attr(hb.offset)
-                scalar = attr(hb.coordinate_scalar)
-                sx, sy, gx, gy = attr(hb.source_x), attr(hb.source_y), attr(hb.group_x), attr(hb.group_y)
-                cx, cy = attr(hb.cdp_x), attr(hb.cdp_y)
         except InputError:
             raise
         except Exception as exc:  # segyio reports malformed files as RuntimeError and friends
             raise InputError(f"{self.path}: segyio cannot read it as SEG-Y: {exc}") from None
+        fields = {"ns": (_TR_SAMPLES, 2), "dt": (_TR_INTERVAL, 2), "delay": (_TR_DELAY, 2), "id": (_TR_ID, 2),
+                  "cdp": (hb.cdp, 4), "offset": (hb.offset, 4), "scalar": (hb.coordinate_scalar, 2),
+                  "sx": (hb.source_x, 4), "sy": (hb.source_y, 4), "gx": (hb.group_x, 4), "gy": (hb.group_y, 4),
+                  "cx": (hb.cdp_x, 4), "cy": (hb.cdp_y, 4)}
+        h = self._scan_file(fields)
+        tr_ns, tr_dt, delay, trace_id = h["ns"], h["dt"], h["delay"], h["id"]
+        cdp, off, scalar = h["cdp"], h["offset"], h["scalar"]
+        sx, sy, gx, gy, cx, cy = h["sx"], h["sy"], h["gx"], h["gy"], h["cx"], h["cy"]
 
         self._check_samples(tr_ns, tr_dt)
         if np.any(delay != delay[0]):
@@ -228,6 +229,32 @@ class SegyLine:
         self.index = CmpIndex(cmp=numbers.astype(np.int64), start=start, order=order.astype(np.int64),
                               offset=offset.astype(np.float32), cmp_x=cmp_x, cmp_y=cmp_y,
                               offset_source=source, binned=binned)
+
+    def _scan_file(self, fields: dict[str, tuple[int, int]]) -> dict[str, np.ndarray]:
+        """One sequential pass over the file: the given trace-header fields and the checksum.
+
+        ``fields`` maps a name to (1-based byte position, size 2 or 4). Reading a few MiB at a
+        time keeps memory flat; hashing in the same pass spares a second read of the line.
+        """
+        endian = ">" if self.endian == "big" else "<"
+        out = {name: np.empty(self.ntraces, dtype=np.int64) for name in fields}
+        digest = hashlib.sha256()
+        chunk = max(1, (8 << 20) // self.trace_bytes)
+        buf = bytearray(chunk * self.trace_bytes)
+        with open(self.path, "rb") as fh:
+            digest.update(fh.read(self.data_offset))
+            for start in range(0, self.ntraces, chunk):
+                n = min(chunk, self.ntraces - start)
+                view = memoryview(buf)[: n * self.trace_bytes]
+                if fh.readinto(view) != len(view):
+                    raise InputError(f"{self.path}: the file ended early while reading trace headers")
+                digest.update(view)
+                rows = np.frombuffer(view, dtype=np.uint8).reshape(n, self.trace_bytes)
+                for name, (pos, size) in fields.items():
+                    cells = np.ascontiguousarray(rows[:, pos - 1: pos - 1 + size])
+                    out[name][start: start + n] = cells.view(f"{endian}i{size}")[:, 0]
+        self.checksum = "sha256:" + digest.hexdigest()
+        return out
 
     def _first_trace_field(self, pos: int) -> int:
         with open(self.path, "rb") as fh:
@@ -332,12 +359,8 @@ class SegyLine:
         self.close()
 
     def identity(self) -> dict:
-        """Path, size in bytes and a BLAKE2b checksum of the whole file, for the result's ``input``."""
-        digest = hashlib.blake2b(digest_size=20)
-        with open(self.path, "rb") as fh:
-            for chunk in iter(lambda: fh.read(1 << 23), b""):
-                digest.update(chunk)
-        return {"path": str(self.path.resolve()), "size": self.size, "checksum": "blake2b-160:" + digest.hexdigest(),
+        """Path, size in bytes and the SHA-256 of the whole file (taken while indexing), for ``input``."""
+        return {"path": str(self.path.resolve()), "size": self.size, "checksum": self.checksum,
                 "units": "feet converted to metres" if self.feet else "metres",
                 "sample_format": self.sample_format, "endian": self.endian, "ntraces": int(self.ntraces),
                 "offset_source": self.index.offset_source, "cmp_binned_from_midpoints": self.index.binned}
