@@ -122,7 +122,9 @@ class PickParams:
     Attributes
     ----------
     node_interval : float
-        Time step of the dynamic-programming path, s (default 0.024).
+        Shortest time step of the dynamic-programming path, s (default 0.024). It is lengthened
+        (up to 0.25 s) where needed so that the slower of the two rates below allows at least
+        one velocity sample of change per step.
     max_increase, max_decrease : float
         Largest rate at which the stacking velocity may rise or fall with t0, (m/s)/s
         (defaults 3000 and 1000).
@@ -140,6 +142,10 @@ class PickParams:
         Smallest time between two picks, s (default 0.1).
     tmin : float
         No picks above this t0, s (default 0.1).
+    consistency_ratio : float
+        Where two neighbouring picks imply an interval velocity outside the physical range of
+        [interval], the weaker is dropped when its coherence is below this fraction of the
+        stronger's (default 0.5); stronger contradictions are kept and flagged by Dix.
     """
 
     node_interval: float = 0.024
@@ -154,8 +160,10 @@ class PickParams:
     min_live: int = 6
     min_separation: float = 0.1
     tmin: float = 0.1
+    consistency_ratio: float = 0.5
 
     def validate(self) -> None:
+        _check(0 <= self.consistency_ratio <= 1, "consistency_ratio must be in [0, 1]")
         _check(_finite_positive(self.node_interval), "node_interval must be > 0 s")
         _check(_finite_nonneg(self.max_increase) and _finite_nonneg(self.max_decrease),
                "max_increase and max_decrease must be >= 0 (m/s)/s")

@@ -22,6 +22,9 @@ from scipy.signal import find_peaks, peak_widths
 from .params import PickParams
 
 
+MAX_NODE_INTERVAL = 0.25  # s: longer steps would blur events closer than this
+
+
 @dataclass
 class PickResult:
     """Picks and the traced function of one CMP.
@@ -76,6 +79,21 @@ def _best_path(score, lo, hi):
     return path
 
 
+@njit(cache=True, nogil=True)
+def _node_scores(panel, edges):
+    """Mean coherence over each node's samples: (nnode, nv) float64 from a (nv, nt) panel."""
+    nv = panel.shape[0]
+    nnode = edges.shape[0] - 1
+    out = np.empty((nnode, nv))
+    for v in range(nv):
+        for n in range(nnode):
+            acc = 0.0
+            for j in range(edges[n], edges[n + 1]):
+                acc += panel[v, j]
+            out[n, v] = acc / (edges[n + 1] - edges[n])
+    return out
+
+
 def corridor(t0: np.ndarray, params: PickParams, vmin: float, vmax: float) -> tuple[np.ndarray, np.ndarray]:
     """Lower and upper velocity bounds at each time, m/s: linear from the top to the bottom values."""
     top_lo = params.vmin_top or vmin
@@ -91,13 +109,19 @@ def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray,
     """The dynamic-programming velocity function on every t0 sample, m/s (float64)."""
     nv, nt = panel.shape
     dt = t0[1] - t0[0] if nt > 1 else 1.0
-    step = max(int(round(params.node_interval / dt)), 1)
+    # Lengthen the node step until the slower nonzero rate allows one velocity sample per step;
+    # rounding a fraction of a sample down would forbid that direction altogether.
+    node = params.node_interval
+    widest = float(np.max(np.diff(velocities))) if nv > 1 else 0.0
+    for rate in (params.max_increase, params.max_decrease):
+        if rate > 0:
+            node = max(node, widest / rate)
+    node = min(node, MAX_NODE_INTERVAL)
+    step = max(int(np.ceil(node / dt - 1e-9)), 1)
     edges = np.arange(0, nt + step, step)
     edges[-1] = min(edges[-1], nt)
     edges = np.unique(np.minimum(edges, nt))
-    # Node score: mean coherence over the node's samples.
-    sums = np.add.reduceat(panel.astype(np.float64), edges[:-1], axis=1)
-    score = (sums / np.diff(edges)).T.copy()
+    score = _node_scores(np.ascontiguousarray(panel, dtype=np.float32), edges.astype(np.int64))
     node_t = 0.5 * (t0[edges[:-1]] + t0[edges[1:] - 1])
     lo_v, hi_v = corridor(node_t, params, velocities[0], velocities[-1])
     outside = (velocities[None, :] < lo_v[:, None]) | (velocities[None, :] > hi_v[:, None])
@@ -117,7 +141,8 @@ def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray,
 
 def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params: PickParams,
                search: int = 4, offsets: np.ndarray | None = None,
-               stretch_limit: float | None = None) -> PickResult:
+               stretch_limit: float | None = None,
+               vint_bounds: tuple[float, float] | None = None) -> PickResult:
     """Trace the velocity function and pick the coherence maxima along it.
 
     Parameters
@@ -176,8 +201,37 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
             times.append(t0[j])
             vels.append(v)
             cohs.append(c)
-    return PickResult(t0=np.asarray(times, dtype=np.float64), velocity=np.asarray(vels, dtype=np.float32),
-                      coherence=np.asarray(cohs, dtype=np.float32), path=path.astype(np.float32))
+    times, vels, cohs = (np.asarray(a, dtype=np.float64) for a in (times, vels, cohs))
+    if vint_bounds is not None and times.size > 1:
+        keep = consistent_picks(times, vels, cohs, vint_bounds, params.consistency_ratio)
+        times, vels, cohs = times[keep], vels[keep], cohs[keep]
+    return PickResult(t0=times, velocity=vels.astype(np.float32), coherence=cohs.astype(np.float32),
+                      path=path.astype(np.float32))
+
+
+def consistent_picks(t0: np.ndarray, v: np.ndarray, coherence: np.ndarray, vint_bounds: tuple[float, float],
+                     ratio: float) -> np.ndarray:
+    """Mask of picks kept after dropping weak picks that make Dix's interval velocity impossible.
+
+    Dix (1955): v_int^2 = (t2 V2^2 - t1 V1^2) / (t2 - t1) between neighbouring picks. While some
+    interval falls outside ``vint_bounds`` and the weaker of its two picks has less than
+    ``ratio`` times the stronger one's coherence, that weaker pick is dropped.
+    """
+    lo2, hi2 = vint_bounds[0] ** 2, vint_bounds[1] ** 2
+    keep = np.ones(t0.size, dtype=bool)
+    while True:
+        idx = np.flatnonzero(keep)
+        b = t0[idx] * v[idx] ** 2
+        u = np.diff(b) / np.diff(t0[idx])
+        bad = np.flatnonzero((u < lo2) | (u > hi2))
+        weak = np.where(coherence[idx[bad]] < coherence[idx[bad + 1]], idx[bad], idx[bad + 1])
+        strong = np.where(weak == idx[bad], idx[bad + 1], idx[bad])
+        droppable = weak[coherence[weak] < ratio * coherence[strong]]
+        # Drop the weakest offender first: removing it may make its neighbours consistent.
+        drop = droppable[np.argmin(coherence[droppable])] if droppable.size else None
+        if drop is None:
+            return keep
+        keep[drop] = False
 
 
 def _refine(column: np.ndarray, velocities: np.ndarray, r: int) -> tuple[float, float]:

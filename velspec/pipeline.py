@@ -93,7 +93,8 @@ def analyse_gather(gather: Gather, times: np.ndarray, dt: float, params: RunPara
         best = panel.argmax(axis=0)
         panel = panel.max(axis=0)
     outcome.picks = pick_panel(panel, velocities, times, params.pick, offsets=gather.offsets,
-                               stretch_limit=sp.stretch_limit)
+                               stretch_limit=sp.stretch_limit,
+                               vint_bounds=(params.interval.vint_min, params.interval.vint_max))
     if etas is not None:
         rows = np.abs(velocities[None, :] - outcome.picks.velocity[:, None]).argmin(axis=1)
         cols = np.searchsorted(times, outcome.picks.t0 - 1e-9)
