@@ -94,6 +94,24 @@ def _node_scores(panel, edges):
     return out
 
 
+@njit(cache=True, nogil=True)
+def _near_path_maxima(panel, centre, search):
+    """Row of the largest panel value within +-search rows of the path, and that value, per t0."""
+    nv, nt = panel.shape
+    rows = np.empty(nt, dtype=np.int64)
+    values = np.empty(nt, dtype=np.float64)
+    for j in range(nt):
+        lo = max(centre[j] - search, 0)
+        hi = min(centre[j] + search, nv - 1)
+        best = lo
+        for r in range(lo + 1, hi + 1):
+            if panel[r, j] > panel[best, j]:   # first maximum wins, as argmax
+                best = r
+        rows[j] = best
+        values[j] = panel[best, j]
+    return rows, values
+
+
 def corridor(t0: np.ndarray, params: PickParams, vmin: float, vmax: float) -> tuple[np.ndarray, np.ndarray]:
     """Lower and upper velocity bounds at each time, m/s: linear from the top to the bottom values."""
     top_lo = params.vmin_top or vmin
@@ -170,11 +188,7 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
     nv, nt = panel.shape
     path = trace_function(panel, velocities, t0, params)
     centre = np.clip(np.searchsorted(velocities, path), 0, nv - 1)
-    steps = np.arange(-search, search + 1)
-    rows = np.clip(centre[None, :] + steps[:, None], 0, nv - 1)
-    near = np.take_along_axis(panel, rows, axis=0)           # (2*search+1, nt)
-    peak_row = rows[near.argmax(axis=0), np.arange(nt)]
-    along = panel[peak_row, np.arange(nt)]
+    peak_row, along = _near_path_maxima(panel, centre.astype(np.int64), search)
 
     dt = t0[1] - t0[0] if nt > 1 else 1.0
     sep = max(int(round(params.min_separation / dt)), 1)
