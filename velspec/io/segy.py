@@ -304,19 +304,20 @@ class SegyLine:
         self._fd = os.open(self.path, os.O_RDONLY)
 
     def _read_samples(self, traces: np.ndarray) -> np.ndarray:
-        """Raw samples of the given traces (ascending trace numbers), one positioned read each.
+        """Raw samples of the given traces, row k from trace ``traces[k]``, one positioned read each.
 
-        Explicit reads rather than a memory map keep the resident memory to one block of traces,
-        however long the line.
+        The reads go in ascending file position (the file is walked front to back) straight into
+        their rows. Explicit reads rather than a memory map keep the resident memory to one block
+        of traces, however long the line.
         """
         count = self.nsamples * self._sample_dtype.itemsize
         out = np.empty((len(traces), self.nsamples), dtype=self._sample_dtype)
         view = out.view(np.uint8).reshape(len(traces), count)
-        for row, i in enumerate(traces):
-            pos = self.data_offset + int(i) * self.trace_bytes + TRACE_HEADER
-            got = os.preadv(self._fd, [view[row]], pos)
+        for row in np.argsort(traces, kind="stable"):
+            i = int(traces[row])
+            got = os.preadv(self._fd, [view[row]], self.data_offset + i * self.trace_bytes + TRACE_HEADER)
             if got != count:
-                raise InputError(f"{self.path}: trace {int(i)} could not be read whole (file changed?)")
+                raise InputError(f"{self.path}: trace {i} could not be read whole (file changed?)")
         return out
 
     # -- reading -------------------------------------------------------------------------------
@@ -334,17 +335,13 @@ class SegyLine:
         """Read the k-th CMP (0-based position in ``index.cmp``): live traces sorted by offset."""
         ix = self.index
         traces = ix.order[ix.start[k]: ix.start[k + 1]]
-        # Reading in ascending file order walks the file front to back.
-        sort = np.argsort(traces, kind="stable")
-        raw = self._read_samples(traces[sort])
-        data = np.empty((len(traces), self.nsamples), dtype=np.float32)
-        data[sort] = _to_float32(raw, self.sample_format)
+        data = _to_float32(self._read_samples(traces), self.sample_format)
         finite = np.isfinite(data).all(axis=1)
-        dead = self.dead[traces] | ~np.any(data != 0, axis=1)
-        dead &= finite
+        dead = (self.dead[traces] | ~data.any(axis=1)) & finite
         keep = finite & ~dead
-        return Gather(cmp=int(ix.cmp[k]), offsets=ix.offset[traces][keep],
-                      data=np.ascontiguousarray(data[keep]),
+        if not keep.all():
+            data = np.ascontiguousarray(data[keep])
+        return Gather(cmp=int(ix.cmp[k]), offsets=ix.offset[traces][keep], data=data,
                       dropped_nan=int(np.count_nonzero(~finite)), dropped_dead=int(np.count_nonzero(dead)))
 
     def close(self) -> None:
