@@ -94,6 +94,10 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("velspec: error: interrupted; no output was written", file=sys.stderr)
         return EXIT_USAGE
+    except BrokenPipeError:
+        # The reader of our output went away (e.g. `| head`); the work itself is complete.
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_OK
 
 
 # -- commands ---------------------------------------------------------------------------------
