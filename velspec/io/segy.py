@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import hashlib
 import os
+import threading
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -231,30 +232,46 @@ class SegyLine:
                               offset_source=source, binned=binned)
 
     def _scan_file(self, fields: dict[str, tuple[int, int]]) -> dict[str, np.ndarray]:
-        """One sequential pass over the file: the given trace-header fields and the checksum.
+        """One sequential pass over the file for the given trace-header fields.
 
         ``fields`` maps a name to (1-based byte position, size 2 or 4). Reading a few MiB at a
-        time keeps memory flat; hashing in the same pass spares a second read of the line.
+        time keeps memory flat. The checksum is taken by a background thread meanwhile (hashlib
+        releases the GIL), on the core the single-threaded parts of a run leave idle.
         """
+        self._checksum_thread = threading.Thread(target=self._hash_file, name="velspec-checksum", daemon=True)
+        self._checksum_thread.start()
         endian = ">" if self.endian == "big" else "<"
         out = {name: np.empty(self.ntraces, dtype=np.int64) for name in fields}
-        digest = hashlib.sha256()
         chunk = max(1, (8 << 20) // self.trace_bytes)
         buf = bytearray(chunk * self.trace_bytes)
         with open(self.path, "rb") as fh:
-            digest.update(fh.read(self.data_offset))
+            fh.seek(self.data_offset)
             for start in range(0, self.ntraces, chunk):
                 n = min(chunk, self.ntraces - start)
                 view = memoryview(buf)[: n * self.trace_bytes]
                 if fh.readinto(view) != len(view):
                     raise InputError(f"{self.path}: the file ended early while reading trace headers")
-                digest.update(view)
                 rows = np.frombuffer(view, dtype=np.uint8).reshape(n, self.trace_bytes)
                 for name, (pos, size) in fields.items():
                     cells = np.ascontiguousarray(rows[:, pos - 1: pos - 1 + size])
                     out[name][start: start + n] = cells.view(f"{endian}i{size}")[:, 0]
-        self.checksum = "sha256:" + digest.hexdigest()
         return out
+
+    def _hash_file(self) -> None:
+        digest = hashlib.sha256()
+        try:
+            with open(self.path, "rb") as fh:
+                for block in iter(lambda: fh.read(8 << 20), b""):
+                    digest.update(block)
+            self._checksum = "sha256:" + digest.hexdigest()
+        except OSError as exc:
+            self._checksum = f"unavailable ({exc.strerror})"
+
+    @property
+    def checksum(self) -> str:
+        """SHA-256 of the whole file, as ``"sha256:<hex>"``."""
+        self._checksum_thread.join()
+        return self._checksum
 
     def _first_trace_field(self, pos: int) -> int:
         with open(self.path, "rb") as fh:
