@@ -135,11 +135,13 @@ def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams) -> 
     eta = np.zeros((len(analysed), nt), dtype=np.float32) if params.scan.moveout == "nonhyperbolic" else None
     for row, o in enumerate(analysed):
         p = o.picks
-        pick_t, pick_v = p.t0, p.velocity
+        live = p.t0 > 0   # Dix counts time from zero: a pick at or above it carries no interval
+        pick_t, pick_v = p.t0[live], p.velocity[live]
         if pick_t.size == 0:
             # No coherence maximum passed the thresholds: fall back on the traced function.
             no_picks[row] = 1
-            nodes = np.linspace(max(params.pick.tmin, t0[1]), t0[-1], 8)
+            start = max(params.pick.tmin, float(t0[t0 > 0][0]))
+            nodes = np.append(np.arange(start, t0[-1], params.pick.min_separation), t0[-1])
             pick_t, pick_v = nodes, np.interp(nodes, t0, p.path).astype(np.float32)
         f = fields_from_picks(t0, pick_t, pick_v, params.interval)
         vrms[row], vint[row], vint_raw[row] = f.vrms, f.vint, f.vint_raw

@@ -186,6 +186,9 @@ class SegyLine:
             raise InputError(f"{self.path}: delay recording time (byte {_TR_DELAY}) differs between traces "
                              f"({delay.min()}..{delay.max()} ms); velspec needs one time zero for the line")
         self.t_first = float(delay[0]) / 1000.0
+        if self.t_first + (self.nsamples - 1) * self.dt <= 0:
+            raise InputError(f"{self.path}: with a delay recording time of {delay[0]} ms every sample lies at "
+                             "or before time zero; there is nothing to analyse")
         self.dead = trace_id == 2  # SEG-Y trace identification code 2: dead trace
 
         scale = np.where(scalar > 0, scalar.astype(np.float64), 1.0)
