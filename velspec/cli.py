@@ -136,8 +136,10 @@ def _cmd_run(args) -> int:
 
     out = Path(args.out)
     _check_output_file(out, args.force)
-    if not Path(args.line).is_file():
+    if not Path(args.line).exists():
         raise UsageError(f"{args.line}: no such file")
+    if not Path(args.line).is_file():
+        raise UsageError(f"{args.line} is not a file; give the SEG-Y file of the line")
     params = _run_params(args)
     result = run_line(args.line, params, progress_factory=_progress(args.quiet, "scanning"))
     for message in result.warnings:
