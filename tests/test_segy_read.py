@@ -161,3 +161,27 @@ def test_little_endian_rev2_file(tmp_path, ieee):
     with open_line(little) as a, open_line(ieee) as b:
         assert a.endian == "little"
         assert np.array_equal(a.read_gather(3).data, b.read_gather(3).data)
+
+
+def test_extended_textual_headers_are_skipped(tmp_path, ieee):
+    # SEG-Y rev 1: binary-header bytes 3505-3506 count the 3200-byte extended textual headers
+    # that follow the binary header; segyio writes one here and reads it back as the reference.
+    ext = tmp_path / "ext.sgy"
+    with segyio.open(ieee, ignore_geometry=True) as src:
+        spec = segyio.spec()
+        spec.format = 5
+        spec.samples = src.samples
+        spec.tracecount = src.tracecount
+        spec.ext_headers = 1
+        with segyio.create(ext, spec) as dst:
+            dst.bin = src.bin
+            dst.bin.update({segyio.BinField.ExtendedHeaders: 1})
+            dst.text[1] = segyio.tools.create_text_header({1: "extended textual header written by a test"})
+            for i in range(src.tracecount):
+                dst.header[i] = src.header[i]
+                dst.trace[i] = src.trace[i]
+    assert ext.stat().st_size == ieee.stat().st_size + 3200
+    with open_line(ext) as a, open_line(ieee) as b:
+        assert a.data_offset == 3600 + 3200 and a.ntraces == b.ntraces
+        assert np.array_equal(a.read_gather(2).data, b.read_gather(2).data)
+        assert np.array_equal(a.index.cmp, b.index.cmp)

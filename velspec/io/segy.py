@@ -35,7 +35,7 @@ FEET = 0.3048
 FORMATS = {1: (4, ">u4"), 2: (4, ">i4"), 3: (2, ">i2"), 5: (4, ">f4"), 8: (1, "i1")}
 
 # Binary-header byte positions (1-based, SEG-Y rev 1).
-_BIN_INTERVAL, _BIN_SAMPLES, _BIN_FORMAT, _BIN_UNITS, _BIN_EXTENDED = 3217, 3221, 3225, 3255, 3305
+_BIN_INTERVAL, _BIN_SAMPLES, _BIN_FORMAT, _BIN_UNITS, _BIN_EXTENDED = 3217, 3221, 3225, 3255, 3505
 # Trace-header byte positions that are not user-configurable (SEG-Y rev 1).
 _TR_ID, _TR_DELAY, _TR_SAMPLES, _TR_INTERVAL = 29, 109, 115, 117
 
