@@ -185,3 +185,23 @@ def test_extended_textual_headers_are_skipped(tmp_path, ieee):
         assert a.data_offset == 3600 + 3200 and a.ntraces == b.ntraces
         assert np.array_equal(a.read_gather(2).data, b.read_gather(2).data)
         assert np.array_equal(a.index.cmp, b.index.cmp)
+
+
+def test_more_than_32767_samples(tmp_path):
+    # Sample count and interval are unsigned 16-bit fields (SEG-Y rev 2.0, binary bytes 3221 and
+    # 3217, trace bytes 115 and 117): 40000 samples at 0.25 ms must not read as negative.
+    path = tmp_path / "long.sgy"
+    spec = segyio.spec()
+    spec.format = 5
+    spec.samples = np.arange(40000) * 0.25
+    spec.tracecount = 4
+    with segyio.create(path, spec) as f:
+        f.bin.update({segyio.BinField.Interval: 250, segyio.BinField.Samples: 40000})
+        for i in range(4):
+            f.header[i] = {segyio.TraceField.CDP: 7, segyio.TraceField.offset: 100 * (i + 1),
+                           segyio.TraceField.TRACE_SAMPLE_COUNT: 40000, segyio.TraceField.TRACE_SAMPLE_INTERVAL: 250}
+            f.trace[i] = np.full(40000, i + 1, dtype=np.float32)
+    with open_line(path) as line:
+        assert line.nsamples == 40000 and line.dt == pytest.approx(0.00025)
+        g = line.read_gather(0)
+        assert np.array_equal(g.data[:, -1], [1, 2, 3, 4]) and list(g.offsets) == [100, 200, 300, 400]

@@ -120,9 +120,9 @@ class SegyLine:
             fh.seek(TEXT_HEADER)
             binary = fh.read(BINARY_HEADER)
 
-        def field(pos, size, endian):
+        def field(pos, size, endian, signed=True):
             raw = binary[pos - TEXT_HEADER - 1: pos - TEXT_HEADER - 1 + size]
-            return int.from_bytes(raw, "big" if endian == "big" else "little", signed=True)
+            return int.from_bytes(raw, "big" if endian == "big" else "little", signed=signed)
 
         # SEG-Y is big-endian; rev 2.0 allows little-endian files, recognised by their format code.
         self.endian = "big"
@@ -133,8 +133,9 @@ class SegyLine:
             raise InputError(f"{self.path}: does not look like SEG-Y (binary-header sample format code "
                              f"{fmt} at byte {_BIN_FORMAT}; velspec reads codes {sorted(FORMATS)})")
         self.sample_format = fmt
-        self.bin_samples = field(_BIN_SAMPLES, 2, self.endian)
-        self.bin_interval = field(_BIN_INTERVAL, 2, self.endian)
+        # Counts and intervals are unsigned: long records at fine sampling pass 32767 samples.
+        self.bin_samples = field(_BIN_SAMPLES, 2, self.endian, signed=False)
+        self.bin_interval = field(_BIN_INTERVAL, 2, self.endian, signed=False)
         units = field(_BIN_UNITS, 2, self.endian)
         self.feet = units == 2
         extended = field(_BIN_EXTENDED, 2, self.endian)
@@ -172,7 +173,7 @@ class SegyLine:
             raise
         except Exception as exc:  # segyio reports malformed files as RuntimeError and friends
             raise InputError(f"{self.path}: segyio cannot read it as SEG-Y: {exc}") from None
-        fields = {"ns": (_TR_SAMPLES, 2), "dt": (_TR_INTERVAL, 2), "delay": (_TR_DELAY, 2), "id": (_TR_ID, 2),
+        fields = {"ns": (_TR_SAMPLES, -2), "dt": (_TR_INTERVAL, -2), "delay": (_TR_DELAY, 2), "id": (_TR_ID, 2),
                   "cdp": (hb.cdp, 4), "offset": (hb.offset, 4), "scalar": (hb.coordinate_scalar, 2),
                   "sx": (hb.source_x, 4), "sy": (hb.source_y, 4), "gx": (hb.group_x, 4), "gy": (hb.group_y, 4),
                   "cx": (hb.cdp_x, 4), "cy": (hb.cdp_y, 4)}
@@ -191,8 +192,9 @@ class SegyLine:
                              "or before time zero; there is nothing to analyse")
         self.dead = trace_id == 2  # SEG-Y trace identification code 2: dead trace
 
-        scale = np.where(scalar > 0, scalar.astype(np.float64), 1.0)
-        scale = np.where(scalar < 0, 1.0 / np.abs(scalar), scale)
+        # SEG-Y rev 1 byte 71: positive multiplies, negative divides, zero means 1.
+        magnitude = np.maximum(np.abs(scalar), 1).astype(np.float64)
+        scale = np.where(scalar < 0, 1.0 / magnitude, magnitude)
         unit = FEET if self.feet else 1.0
         sx, sy, gx, gy, cx, cy = ((a * scale * unit) for a in (sx, sy, gx, gy, cx, cy))
         have_coords = bool(np.any(sx) or np.any(gx) or np.any(sy) or np.any(gy))
@@ -237,9 +239,10 @@ class SegyLine:
     def _scan_file(self, fields: dict[str, tuple[int, int]]) -> dict[str, np.ndarray]:
         """One sequential pass over the file for the given trace-header fields.
 
-        ``fields`` maps a name to (1-based byte position, size 2 or 4). Reading a few MiB at a
-        time keeps memory flat. The checksum is taken by a background thread meanwhile (hashlib
-        releases the GIL), on the core the single-threaded parts of a run leave idle.
+        ``fields`` maps a name to (1-based byte position, size 2 or 4; negative for unsigned).
+        Reading a few MiB at a time keeps memory flat. The checksum is taken meanwhile by a
+        background thread (hashlib releases the GIL), on the core that the single-threaded parts
+        of a run leave idle.
         """
         self._checksum_thread = threading.Thread(target=self._hash_file, name="velspec-checksum", daemon=True)
         self._checksum_thread.start()
@@ -256,8 +259,9 @@ class SegyLine:
                     raise InputError(f"{self.path}: the file ended early while reading trace headers")
                 rows = np.frombuffer(view, dtype=np.uint8).reshape(n, self.trace_bytes)
                 for name, (pos, size) in fields.items():
+                    kind, size = ("u", -size) if size < 0 else ("i", size)
                     cells = np.ascontiguousarray(rows[:, pos - 1: pos - 1 + size])
-                    out[name][start: start + n] = cells.view(f"{endian}i{size}")[:, 0]
+                    out[name][start: start + n] = cells.view(f"{endian}{kind}{size}")[:, 0]
         return out
 
     def _hash_file(self) -> None:
@@ -279,7 +283,7 @@ class SegyLine:
     def _first_trace_field(self, pos: int) -> int:
         with open(self.path, "rb") as fh:
             fh.seek(self.data_offset + pos - 1)
-            return int.from_bytes(fh.read(2), self.endian, signed=True)
+            return int.from_bytes(fh.read(2), self.endian, signed=False)
 
     def _check_samples(self, tr_ns: np.ndarray, tr_dt: np.ndarray) -> None:
         if np.any((tr_ns != 0) & (tr_ns != self.nsamples)):
