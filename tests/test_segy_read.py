@@ -205,3 +205,26 @@ def test_more_than_32767_samples(tmp_path):
         assert line.nsamples == 40000 and line.dt == pytest.approx(0.00025)
         g = line.read_gather(0)
         assert np.array_equal(g.data[:, -1], [1, 2, 3, 4]) and list(g.offsets) == [100, 200, 300, 400]
+
+
+@pytest.mark.parametrize("fmt, dtype", [(2, np.int32), (3, np.int16), (8, np.int8)])
+def test_integer_sample_formats(tmp_path, fmt, dtype):
+    # SEG-Y rev 1 format codes 2 (4-byte integer), 3 (2-byte integer) and 8 (1-byte integer),
+    # written and read back by segyio as the reference.
+    path = tmp_path / f"int{fmt}.sgy"
+    spec = segyio.spec()
+    spec.format = fmt
+    spec.samples = np.arange(50) * 4.0
+    spec.tracecount = 3
+    values = (np.arange(3 * 50).reshape(3, 50) % 100 - 50).astype(dtype)
+    with segyio.create(path, spec) as f:
+        f.bin.update({segyio.BinField.Interval: 4000})
+        for i in range(3):
+            f.header[i] = {segyio.TraceField.CDP: 1, segyio.TraceField.offset: 100 * (i + 1),
+                           segyio.TraceField.TRACE_SAMPLE_INTERVAL: 4000}
+            f.trace[i] = values[i]
+    with segyio.open(path, ignore_geometry=True) as f:
+        ref = np.stack([f.trace[i] for i in range(3)]).astype(np.float32)
+    with open_line(path) as line:
+        assert line.sample_format == fmt
+        assert np.array_equal(line.read_gather(0).data, ref)
