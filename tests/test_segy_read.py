@@ -143,21 +143,29 @@ def test_header_bytes_can_be_moved(tmp_path, ieee):
         assert line.index.cmp.min() == cdp.min() + 5000 and line.ncmp == 6
 
 
-def test_little_endian_rev2_file(tmp_path, ieee):
-    # SEG-Y rev 2.0 allows little-endian files; segyio writes one and velspec must read it the same.
-    little = tmp_path / "little.sgy"
-    with segyio.open(ieee, ignore_geometry=True) as src:
+def rewrite_with_segyio(src_path, dst_path, endian="big", ext_headers=0):
+    """Copy a line through segyio.create, in the given byte order and with extended headers."""
+    with segyio.open(src_path, ignore_geometry=True) as src:
         spec = segyio.spec()
         spec.format = 5
         spec.samples = src.samples
         spec.tracecount = src.tracecount
-        spec.endian = "little"
-        with segyio.create(little, spec) as dst:
+        spec.endian = endian
+        spec.ext_headers = ext_headers
+        with segyio.create(dst_path, spec) as dst:
             dst.bin = src.bin
-            dst.bin.update({segyio.BinField.Format: 5})
+            dst.bin.update({segyio.BinField.Format: 5, segyio.BinField.ExtendedHeaders: ext_headers})
+            for k in range(ext_headers):
+                dst.text[k + 1] = segyio.tools.create_text_header({1: "extended textual header written by a test"})
             for i in range(src.tracecount):
                 dst.header[i] = src.header[i]
                 dst.trace[i] = src.trace[i]
+
+
+def test_little_endian_rev2_file(tmp_path, ieee):
+    # SEG-Y rev 2.0 allows little-endian files; segyio writes one and velspec must read it the same.
+    little = tmp_path / "little.sgy"
+    rewrite_with_segyio(ieee, little, endian="little")
     with open_line(little) as a, open_line(ieee) as b:
         assert a.endian == "little"
         assert np.array_equal(a.read_gather(3).data, b.read_gather(3).data)
@@ -167,19 +175,7 @@ def test_extended_textual_headers_are_skipped(tmp_path, ieee):
     # SEG-Y rev 1: binary-header bytes 3505-3506 count the 3200-byte extended textual headers
     # that follow the binary header; segyio writes one here and reads it back as the reference.
     ext = tmp_path / "ext.sgy"
-    with segyio.open(ieee, ignore_geometry=True) as src:
-        spec = segyio.spec()
-        spec.format = 5
-        spec.samples = src.samples
-        spec.tracecount = src.tracecount
-        spec.ext_headers = 1
-        with segyio.create(ext, spec) as dst:
-            dst.bin = src.bin
-            dst.bin.update({segyio.BinField.ExtendedHeaders: 1})
-            dst.text[1] = segyio.tools.create_text_header({1: "extended textual header written by a test"})
-            for i in range(src.tracecount):
-                dst.header[i] = src.header[i]
-                dst.trace[i] = src.trace[i]
+    rewrite_with_segyio(ieee, ext, ext_headers=1)
     assert ext.stat().st_size == ieee.stat().st_size + 3200
     with open_line(ext) as a, open_line(ieee) as b:
         assert a.data_offset == 3600 + 3200 and a.ntraces == b.ntraces
