@@ -208,7 +208,7 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         for j in np.unique(centres):
             r = int(peak_row[j])
             column = panel[:, j]
-            # A maximum at the edge of the search is a flank of something off the path, not an event.
+            # Not a maximum along velocity too: the flank of something off the path, not an event.
             if 0 < r < nv - 1 and not (column[r - 1] <= column[r] >= column[r + 1]):
                 continue
             v, c = _refine(column, velocities, r)
@@ -257,4 +257,5 @@ def _refine(column: np.ndarray, velocities: np.ndarray, r: int) -> tuple[float, 
     shift = 0.5 * (a - c) / curv if curv < 0 else 0.0
     shift = float(np.clip(shift, -0.5, 0.5))
     v = float(np.interp(r + shift, np.arange(len(velocities)), velocities))
-    return v, b - 0.25 * (a - c) * shift
+    # Every measure is at most 1 (perfect coherence); the parabola may overshoot it by a hair.
+    return v, min(b - 0.25 * (a - c) * shift, 1.0)
