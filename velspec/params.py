@@ -128,6 +128,10 @@ class PickParams:
     max_increase, max_decrease : float
         Largest rate at which the stacking velocity may rise or fall with t0, (m/s)/s
         (defaults 3000 and 1000).
+    smoothness : float
+        Cost, in units of coherence, of one velocity sample of change between two nodes of the
+        path (default 0.01): where no event pulls the path, it stays put instead of wandering
+        after noise.
     vmin_top, vmax_top, vmin_bottom, vmax_bottom : float
         Velocity corridor: bounds at t0 = 0 and at the last sample, linear in between, m/s.
         0 means the scan range.
@@ -151,6 +155,7 @@ class PickParams:
     node_interval: float = 0.024
     max_increase: float = 3000.0
     max_decrease: float = 1000.0
+    smoothness: float = 0.01
     vmin_top: float = 0.0
     vmax_top: float = 0.0
     vmin_bottom: float = 0.0
@@ -167,6 +172,7 @@ class PickParams:
         _check(_finite_positive(self.node_interval), "node_interval must be > 0 s")
         _check(_finite_nonneg(self.max_increase) and _finite_nonneg(self.max_decrease),
                "max_increase and max_decrease must be >= 0 (m/s)/s")
+        _check(_finite_nonneg(self.smoothness), "smoothness must be >= 0")
         for name in ("vmin_top", "vmax_top", "vmin_bottom", "vmax_bottom"):
             _check(_finite_nonneg(getattr(self, name)), f"{name} must be >= 0 m/s (0: the scan range)")
         _check(0 <= self.min_coherence < 1, "min_coherence must be in [0, 1)")

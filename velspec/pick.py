@@ -48,11 +48,14 @@ class PickResult:
 
 
 @njit(cache=True, nogil=True)
-def _best_path(score, lo, hi):
-    """Index path maximising sum score[n, path[n]] with path[n] in lo[path[n-1]]..hi[path[n-1]].
+def _best_path(score, lo, hi, penalty=0.0):
+    """Index path maximising sum score[n, path[n]] - penalty * |path[n] - path[n-1]|, with
+    path[n] in lo[path[n-1]]..hi[path[n-1]].
 
     score : float64 (nnode, nv), -inf where a velocity is outside the corridor.
     lo, hi : int64 (nv,), inclusive range of indices reachable from each index at the next node.
+    penalty : float, cost of one velocity sample of change between nodes (keeps the path still
+        where no event pulls it).
     """
     nnode, nv = score.shape
     acc = np.full((nnode, nv), -np.inf)
@@ -63,7 +66,7 @@ def _best_path(score, lo, hi):
             if acc[n - 1, a] == -np.inf:
                 continue
             for b in range(lo[a], hi[a] + 1):
-                cand = acc[n - 1, a] + score[n, b]
+                cand = acc[n - 1, a] + score[n, b] - penalty * abs(b - a)
                 # Ties go to the lower previous index, so the path does not depend on loop order.
                 if cand > acc[n, b]:
                     acc[n, b] = cand
@@ -153,7 +156,7 @@ def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray,
     idx = np.arange(nv)
     hi = np.maximum(up, idx).astype(np.int64)
     lo = np.minimum(down, idx).astype(np.int64)
-    path = _best_path(score, lo, hi)
+    path = _best_path(score, lo, hi, params.smoothness)
     return np.interp(t0, node_t, velocities[path])
 
 
