@@ -70,3 +70,21 @@ def test_picks_sit_on_isolated_events():
     assert len(res.t0) == 3
     for (t, v), pt, pv in zip(events, res.t0, res.velocity):
         assert abs(pt - t) <= 0.004 and abs(pv - v) < 0.25 * (vel[1] - vel[0])
+
+
+def test_corridor_keeps_the_function_inside_time_varying_bounds():
+    # A strong ridge at 2000 m/s everywhere, and a corridor that rises from 2500-3500 m/s at the
+    # top to 3000-4000 m/s at the bottom: the traced function must stay inside (the bound is the
+    # user's physical knowledge; common practice, no source).
+    t0 = np.arange(1000) * 0.004
+    vel = np.linspace(1400, 6000, 120)
+    ridge = np.exp(-0.5 * ((vel - 2000.0) / 60.0) ** 2).astype(np.float32)
+    panel = np.repeat(ridge[:, None], t0.size, axis=1)
+    params = PickParams(vmin_top=2500.0, vmax_top=3500.0, vmin_bottom=3000.0, vmax_bottom=4000.0)
+    path = trace_function(panel, vel, t0, params)
+    frac = t0 / t0[-1]
+    lo, hi = 2500.0 + 500.0 * frac, 3500.0 + 500.0 * frac
+    step = vel[1] - vel[0]
+    assert np.all(path >= lo - step) and np.all(path <= hi + step)
+    free = trace_function(panel, vel, t0, PickParams())
+    assert np.all(np.abs(free - 2000.0) <= step)
