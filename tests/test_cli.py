@@ -226,3 +226,16 @@ def test_thread_count_does_not_change_the_result(line, tmp_path, capsys):
     with h5py.File(tmp_path / "t1.h5", "r") as a, h5py.File(tmp_path / "t2.h5", "r") as b:
         for name in ("vrms", "vint", "picks/t0", "picks/vrms", "spectra/coherence"):
             assert np.array_equal(a[name][:], b[name][:]), name
+
+
+def test_line_with_no_usable_trace(line, tmp_path, capsys):
+    nan = tmp_path / "nan.sgy"
+    shutil.copy(line, nan)
+    with segyio.open(nan, "r+", ignore_geometry=True) as f:
+        for i in range(f.tracecount):
+            f.trace[i] = np.full(f.samples.size, np.nan, dtype=np.float32)
+    status, _, err = run(["run", nan, "--out", tmp_path / "r.h5"], capsys)
+    lines = [ln for ln in err.splitlines() if ln.startswith("velspec: error:")]
+    assert status == 2 and len(lines) == 1 and "live traces" in lines[0]
+    assert "Traceback" not in err
+    assert no_output(tmp_path) == []
