@@ -308,7 +308,8 @@ def _ratio(cn, cd, half, out):
 def _window_ratio(num, den, half, out):
     """out[j] = sum num[j-h..j+h] / sum den[j-h..j+h], 0 where the denominator is 0.
 
-    Prefix sums in float64 keep the running window exact enough at any panel length.
+    Prefix sums in float64 keep the running window exact enough at any panel length. Shared by
+    the measures in :mod:`velspec.scan.measures`.
     """
     nt = num.shape[0]
     cn = np.zeros(nt + 1)

@@ -17,28 +17,12 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .kernels import _interp
+from .kernels import _interp, _window_ratio
 from .moveout import positions
 
 # Live traces count as one offset for the A + B*phi fit when the centred sum of phi^2 is below
 # this fraction of the sum of phi^2: it is then only float64 rounding of the running sums.
 _DEGENERATE = 1e-9
-
-
-@njit(cache=True, nogil=True)
-def _slide_ratio(num, den, half, out):
-    """out[j] = sum num[j-h..j+h] / sum den[j-h..j+h], 0 where the denominator is not > 0."""
-    nt = num.shape[0]
-    cn = np.zeros(nt + 1)
-    cd = np.zeros(nt + 1)
-    for j in range(nt):
-        cn[j + 1] = cn[j] + num[j]
-        cd[j + 1] = cd[j] + den[j]
-    for j in range(nt):
-        lo = max(j - half, 0)
-        hi = min(j + half + 1, nt)
-        d = cd[hi] - cd[lo]
-        out[j] = np.float32((cn[hi] - cn[lo]) / d) if d > 0.0 else np.float32(0.0)
 
 
 @njit(cache=True, nogil=True)
@@ -205,7 +189,7 @@ def ab_semblance(data, q_unit, trials, law, tau2, mute_c, tau_first, half):
         fit = np.empty(nt)
         energy = np.empty(nt)
         _ab_energies(sums, fit, energy)
-        _slide_ratio(fit, energy, half, out[m])
+        _window_ratio(fit, energy, half, out[m])
     return out
 
 
@@ -273,7 +257,7 @@ def weighted_semblance(data, q_unit, trials, law, tau2, mute_c, tau_first, half)
         for j in range(nt):
             if energy[j] > 0.0:
                 fit[j] = fit[j] * fit[j] / energy[j]
-        _slide_ratio(fit, energy, half, out[m])
+        _window_ratio(fit, energy, half, out[m])
     return out
 
 
