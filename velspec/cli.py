@@ -31,6 +31,14 @@ class _Parser(argparse.ArgumentParser):
                          if " " in self.prog else f"{message} (see velspec --help)")
 
 
+def _work_options(parser: argparse.ArgumentParser, force_help: str) -> None:
+    """Options of every command that computes and writes: threads, force, quiet, debug."""
+    parser.add_argument("--threads", type=int, metavar="N", help="threads for the kernels (default: all cores)")
+    parser.add_argument("--force", action="store_true", help=force_help)
+    parser.add_argument("--quiet", action="store_true", help="no progress bar")
+    parser.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+
+
 def _build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="velspec", description="First-pass velocity analysis of prestack 2D SEG-Y lines.",
                 epilog=CAUTION)
@@ -48,20 +56,14 @@ def _build_parser() -> argparse.ArgumentParser:
     run.add_argument("--vmin", type=float, metavar="M/S", help="lowest trial stacking velocity (default 1400)")
     run.add_argument("--vmax", type=float, metavar="M/S", help="highest trial stacking velocity (default 6000)")
     run.add_argument("--nvel", type=int, metavar="N", help="number of trial velocities (default 120)")
-    run.add_argument("--threads", type=int, metavar="N", help="threads for the kernels (default: all cores)")
-    run.add_argument("--force", action="store_true", help="overwrite an existing result")
-    run.add_argument("--quiet", action="store_true", help="no progress bar")
-    run.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+    _work_options(run, force_help="overwrite an existing result")
 
     demo = sub.add_parser("demo", help="generate a synthetic line and analyse it",
                           description="Makes a synthetic 2D line (an invented shelf-basin scenario), runs "
                                       "the whole analysis on it and writes the result and a QC picture.",
                           epilog=CAUTION)
     demo.add_argument("--out", default="velspec-demo", metavar="DIR", help="folder to create (default velspec-demo)")
-    demo.add_argument("--threads", type=int, metavar="N", help="threads for the kernels (default: all cores)")
-    demo.add_argument("--force", action="store_true", help="replace an existing folder")
-    demo.add_argument("--quiet", action="store_true", help="no progress bar")
-    demo.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+    _work_options(demo, force_help="replace an existing folder")
 
     ins = sub.add_parser("inspect", help="survey the headers of a line before a long run",
                          description="Traces, CMP range, fold, offsets, sample interval, byte positions "
