@@ -169,7 +169,6 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
     params.validate()
     _set_threads(params.threads)
     with open_line(path, params.read) as line:
-        identity = line.identity()
         update, close = progress_factory(line.ncmp) if progress_factory else (None, None)
         try:
             outcomes = list(stream_pass(line, params, progress=update))
@@ -177,6 +176,7 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
             if close is not None:
                 close()
         ix = line.index
+        identity = line.identity()   # after the pass: the checksum thread has run beside it
         t0 = line.times
         warnings_out = list(line.warnings)
     analysed = [o for o in outcomes if o.picks is not None]
