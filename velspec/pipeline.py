@@ -176,7 +176,7 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
             if close is not None:
                 close()
         ix = line.index
-        identity = line.identity()   # after the pass: the checksum thread has run beside it
+        identity = line.identity()
         t0 = line.times
         warnings_out = list(line.warnings)
     analysed = [o for o in outcomes if o.picks is not None]

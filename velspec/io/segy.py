@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import hashlib
 import os
-import threading
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -240,45 +239,29 @@ class SegyLine:
         """One sequential pass over the file for the given trace-header fields.
 
         ``fields`` maps a name to (1-based byte position, size 2 or 4; negative for unsigned).
-        Reading a few MiB at a time keeps memory flat. The checksum is taken meanwhile by a
-        background thread (hashlib releases the GIL), on the core that the single-threaded parts
-        of a run leave idle.
+        Reading a few MiB at a time keeps memory flat; the SHA-256 of the whole file is taken in
+        the same pass, so the line is read once.
         """
-        self._checksum_thread = threading.Thread(target=self._hash_file, name="velspec-checksum", daemon=True)
-        self._checksum_thread.start()
         endian = ">" if self.endian == "big" else "<"
         out = {name: np.empty(self.ntraces, dtype=np.int64) for name in fields}
+        digest = hashlib.sha256()
         chunk = max(1, (8 << 20) // self.trace_bytes)
         buf = bytearray(chunk * self.trace_bytes)
         with open(self.path, "rb") as fh:
-            fh.seek(self.data_offset)
+            digest.update(fh.read(self.data_offset))
             for start in range(0, self.ntraces, chunk):
                 n = min(chunk, self.ntraces - start)
                 view = memoryview(buf)[: n * self.trace_bytes]
                 if fh.readinto(view) != len(view):
                     raise InputError(f"{self.path}: the file ended early while reading trace headers")
+                digest.update(view)
                 rows = np.frombuffer(view, dtype=np.uint8).reshape(n, self.trace_bytes)
                 for name, (pos, size) in fields.items():
                     kind, size = ("u", -size) if size < 0 else ("i", size)
                     cells = np.ascontiguousarray(rows[:, pos - 1: pos - 1 + size])
                     out[name][start: start + n] = cells.view(f"{endian}{kind}{size}")[:, 0]
+        self.checksum = "sha256:" + digest.hexdigest()
         return out
-
-    def _hash_file(self) -> None:
-        digest = hashlib.sha256()
-        try:
-            with open(self.path, "rb") as fh:
-                for block in iter(lambda: fh.read(8 << 20), b""):
-                    digest.update(block)
-            self._checksum = "sha256:" + digest.hexdigest()
-        except OSError as exc:
-            self._checksum = f"unavailable ({exc.strerror})"
-
-    @property
-    def checksum(self) -> str:
-        """SHA-256 of the whole file, as ``"sha256:<hex>"``."""
-        self._checksum_thread.join()
-        return self._checksum
 
     def _first_trace_field(self, pos: int) -> int:
         with open(self.path, "rb") as fh:
