@@ -11,15 +11,22 @@ two-way reflection from reflector k has
 
     x(p) = 2 * sum_{i<=k} h_i * tan(theta_i),     t(p) = 2 * sum_{i<=k} h_i / (v_i * cos(theta_i)).
 
+A multiple reflection in flat layers keeps one ray parameter at every bounce, so the same equations
+hold with the factor 2 replaced by ``n_i``, the number of times the event crosses layer i: 4 in
+every layer for the first-order free-surface multiple, ``2 (m + 1)`` in the water layer alone for
+a water-layer reverberation of order m, 2 + 2 j in the water and 2 below it for a peg-leg with j
+extra round trips in the water (:func:`event_times`, :func:`path_crossings`).
+
 They are solved for ``p`` at a given offset in the variable ``u = tan(theta_max)``, the tangent of
-the angle in the fastest layer above the reflector. In ``u`` the offset is a smooth, increasing,
+the angle in the fastest layer the event crosses. In ``u`` the offset is a smooth, increasing,
 concave function that grows linearly without bound, so a safeguarded Newton iteration converges
 at every offset, from zero to many times the depth.
 
 References
 ----------
 Snell's law of refraction, as used for layered media in any seismology text, e.g.
-Sheriff, R. E. & Geldart, L. P., 1995, Exploration Seismology, 2nd ed., Cambridge.
+Sheriff, R. E. & Geldart, L. P., 1995, Exploration Seismology, 2nd ed., Cambridge (also for
+free-surface multiples, water-layer reverberations and peg-leg multiples).
 
 Dix, C. H., 1955, Seismic velocities from surface measurements, Geophysics 20, 68-86.
 
@@ -40,6 +47,8 @@ __all__ = [
     "rms_velocity",
     "reflection_times",
     "trace_rays",
+    "event_times",
+    "path_crossings",
     "multiple_times",
     "best_fit_stacking_velocity",
     "stacking_velocity",
@@ -142,29 +151,61 @@ def rms_velocity(thickness, velocity):
     return np.sqrt(np.cumsum(v[:-1] ** 2 * dt) / np.cumsum(dt))
 
 
-def _layer_tables(h, v):
-    """Per-reflector weights of a batch of models for the ray equations.
+def _crossing_table(legs, m, n):
+    """Crossing counts of a ``legs`` argument as float64 (m or 1, E, n), and whether it was an int.
 
-    h, v: (m, n) thicknesses and layer velocities. Returns H (m, k, i) thickness of layer i on the
-    path to reflector k (0 below it), V its velocity (1 below it), r = v_i / vmax_k (0 below it),
-    a = 1 - r^2, vmax (m, k) and hmax (m, k), the thickness of the fastest layers above k.
+    An integer means every layer down to each reflector, crossed ``legs`` times (E = n events).
     """
-    n = h.shape[1]
-    above = np.tri(n, dtype=bool)  # above[k, i]: layer i lies on the path to reflector k
-    vmax = np.maximum.accumulate(v, axis=1)  # fastest layer down to each reflector
-    H = np.where(above[None], h[:, None, :], 0.0)
-    V = np.where(above[None], v[:, None, :], 1.0)
-    r = np.where(above[None], v[:, None, :] / vmax[:, :, None], 0.0)
-    fastest = above[None] & (r >= 1.0)
-    hmax = np.where(fastest, h[:, None, :], 0.0).sum(axis=2)
-    return H, V, r, 1.0 - r * r, vmax, hmax
+    if np.ndim(legs) == 0:
+        if int(legs) != legs or legs <= 0:
+            raise ValueError("legs must be a positive integer or an array of crossing counts")
+        return float(legs) * np.tri(n)[None], True
+    N = np.asarray(legs)
+    if N.ndim == 2:
+        N = N[None]
+    if N.ndim != 3 or N.shape[2] != n or N.shape[0] not in (1, m):
+        raise ValueError(
+            f"crossing counts must have shape (events, {n}) or ({m}, events, {n}), got {N.shape}"
+        )
+    N = N.astype(np.float64)
+    if not (np.all(np.isfinite(N)) and np.all(N >= 0) and np.all(N == np.round(N))):
+        raise ValueError("crossing counts must be whole numbers >= 0")
+    if N.shape[1] and not np.all(N.max(axis=2) > 0):
+        raise ValueError("every event must cross at least one layer")
+    return N, False
+
+
+def _layer_tables(h, v, N):
+    """Per-event weights of a batch of models for the ray equations.
+
+    h, v: (m, n) thicknesses and layer velocities; N: (m or 1, E, n) crossings of layer i by event
+    e. Returns Hl (m, E, i) = N h, the summed path thickness in layer i (0 where not crossed),
+    V its velocity (1 where not crossed), r = v_i / vmax_e (0 where not crossed), a = 1 - r^2,
+    vmax (m, E), the fastest layer crossed, and hmax (m, E), the summed N h of those fastest layers.
+    """
+    on = np.broadcast_to(N > 0, (h.shape[0],) + N.shape[1:])
+    vb = np.broadcast_to(v[:, None, :], on.shape)
+    vmax = np.where(on, vb, 0.0).max(axis=2)  # fastest layer each event crosses
+    Hl = N * h[:, None, :]
+    V = np.where(on, vb, 1.0)
+    r = np.where(on, vb / vmax[:, :, None], 0.0)
+    fastest = on & (r >= 1.0)
+    hmax = np.where(fastest, Hl, 0.0).sum(axis=2)
+    return Hl, V, r, 1.0 - r * r, vmax, hmax
 
 
 def trace_rays(thickness, velocity, offsets, legs=2):
     """Solve the flat-layer ray equations for a batch of models at once.
 
-    The vectorised core of :func:`reflection_times` and :func:`multiple_times`, for callers with
-    a different model per trace (e.g. one shot over a laterally varying line).
+    The vectorised core of :func:`reflection_times`, :func:`multiple_times` and
+    :func:`event_times`, for callers with a different model per trace (e.g. one shot over a
+    laterally varying line). An event that crosses layer i ``n_i`` times with one ray parameter
+    ``p`` (flat layers: Snell's law keeps ``p`` at every bounce) has
+
+        x(p) = sum_i n_i h_i v_i p / sqrt(1 - p^2 v_i^2),
+        t(p) = sum_i n_i h_i / (v_i sqrt(1 - p^2 v_i^2)),
+
+    solved here for ``p`` at each offset to 1e-7 m (times within about 1e-10 s).
 
     Parameters
     ----------
@@ -174,26 +215,38 @@ def trace_rays(thickness, velocity, offsets, legs=2):
         Velocities of those layers, m/s (the half-space is not needed).
     offsets : ndarray, shape (m, nx)
         Offsets per model, m; the sign is ignored.
-    legs : int
-        Times each layer is crossed: 2 for primaries, 4 for first-order surface multiples.
+    legs : int or array_like of int, shape (E, n) or (m, E, n)
+        An integer: times every layer down to each reflector is crossed, 2 for the primaries and
+        4 for the first-order free-surface multiples of the n reflectors (E = n events). An array:
+        ``legs[..., e, i]`` is the number of times event e crosses layer i, whole numbers >= 0
+        with at least one crossing per event, the same for every model (E, n) or per model
+        (m, E, n). Whether the counts make a surface-to-surface path is not checked here (see
+        :func:`event_times`).
 
     Returns
     -------
-    times : ndarray, shape (m, n, nx)
-        Traveltime of the reflection from each reflector, s.
-    ray_parameter : ndarray, shape (m, n, nx)
+    times : ndarray, shape (m, E, nx)
+        Traveltime of each event, s (E = n for an integer ``legs``).
+    ray_parameter : ndarray, shape (m, E, nx)
         s/m.
+
+    Raises
+    ------
+    ValueError
+        If ``legs`` is neither a positive integer nor a table of crossing counts of that shape.
 
     References
     ----------
-    Snell's law; Sheriff & Geldart, 1995, Exploration Seismology, Cambridge.
+    Snell's law; Sheriff & Geldart, 1995, Exploration Seismology, Cambridge (ray paths of
+    primaries and multiples in flat layers).
     """
     h = np.asarray(thickness, dtype=np.float64)
     v = np.asarray(velocity, dtype=np.float64)
     x = np.asarray(offsets, dtype=np.float64)
-    H, V, r, a, vmax, hmax = _layer_tables(h, v)
-    X = np.abs(x)[:, None, :] * np.ones((1, h.shape[1], 1))  # (m, k, nx)
-    Hl, rl, al = (arr[..., None] for arr in (legs * H, r, a))  # (m, k, i, 1)
+    N, _ = _crossing_table(legs, h.shape[0], h.shape[1])
+    Hs, V, r, a, vmax, hmax = _layer_tables(h, v, N)
+    X = np.abs(x)[:, None, :] * np.ones((1, N.shape[1], 1))  # (m, E, nx)
+    Hl, rl, al = (arr[..., None] for arr in (Hs, r, a))  # (m, E, i, 1)
 
     def offset_and_slope(u):
         # tan(theta_i) = r u / sqrt(1 + a u^2); its u-derivative is r / (1 + a u^2)^1.5
@@ -203,12 +256,12 @@ def trace_rays(thickness, velocity, offsets, legs=2):
         dg = (Hl * rl / (q * np.sqrt(q))).sum(axis=2)
         return g, dg
 
-    # x(u) >= legs*hmax*u, so u = X / (legs*hmax) brackets the root from above
+    # x(u) >= hmax*u (the fastest layers' share alone), so u = X / hmax brackets the root above
     lo = np.zeros_like(X)
-    hi = X / (legs * hmax[:, :, None])
+    hi = X / hmax[:, :, None]
     # start from the ray parameter of the RMS-velocity hyperbola; any start converges
-    t0 = (legs * H / V).sum(axis=2)[:, :, None]
-    v2 = (legs * H * V).sum(axis=2)[:, :, None] / t0
+    t0 = (Hs / V).sum(axis=2)[:, :, None]
+    v2 = (Hs * V).sum(axis=2)[:, :, None] / t0
     s0 = np.minimum(X / (np.sqrt(t0 * t0 + X * X / v2) * v2) * vmax[:, :, None], 0.99)
     u = np.minimum(s0 / np.sqrt(1.0 - s0 * s0), hi)
     active = X > 0
@@ -285,7 +338,7 @@ def multiple_times(thickness, velocity, offsets):
     The multiple of reflector k bounces once at the free surface and travels the primary's path
     twice: ``x = 4 sum h_i tan(theta_i)`` and ``t = 4 sum h_i / (v_i cos(theta_i))`` with one ray
     parameter throughout (the layers are flat, so Snell's law keeps ``p`` at every bounce).
-    Pegleg multiples within the layers are not modelled.
+    For reverberations, peg-legs and any other count of layer crossings see :func:`event_times`.
 
     Parameters
     ----------
@@ -308,6 +361,119 @@ def multiple_times(thickness, velocity, offsets):
     Snell's law; Sheriff & Geldart, 1995, Exploration Seismology, Cambridge (multiple reflections).
     """
     return _single(thickness, velocity, offsets, 4)
+
+
+def path_crossings(nlayers, reflector, repeats=1, water_round_trips=0):
+    """Crossing counts of a primary, a free-surface multiple or a peg-leg in flat layers.
+
+    The event goes down to ``reflector`` and back ``repeats`` times (each time reflected at the
+    free surface in between) and makes ``water_round_trips`` further round trips in layer 0 alone
+    (sea surface to sea floor and back). So layer i crosses ``2 * repeats`` times for
+    ``i <= reflector``, plus ``2 * water_round_trips`` in layer 0.
+
+    ======================================  =========  =======  =================
+    event                                   reflector  repeats  water_round_trips
+    ======================================  =========  =======  =================
+    primary of reflector k                  k          1        0
+    first-order multiple of reflector k     k          2        0
+    sea-floor reverberation of order m      0          m + 1    0
+    peg-leg of reflector k, j water trips   k          1        j
+    ======================================  =========  =======  =================
+
+    Parameters
+    ----------
+    nlayers : int
+        Number of layers n of the model (reflectors 0..n-1).
+    reflector : int
+        Deepest reflector the event reaches, 0-based.
+    repeats : int
+        Round trips down to ``reflector``, >= 1.
+    water_round_trips : int
+        Extra round trips in layer 0, >= 0.
+
+    Returns
+    -------
+    crossings : ndarray of int64, shape (n,)
+        Times the event crosses each layer, for :func:`event_times`.
+
+    References
+    ----------
+    Sheriff, R. E. & Geldart, L. P., 1995, Exploration Seismology, 2nd ed., Cambridge (multiple
+    reflections: free-surface multiples, water reverberations, peg-legs).
+    """
+    n, k = int(nlayers), int(reflector)
+    if n < 1 or not 0 <= k < n:
+        raise ValueError(f"reflector must be in 0..{n - 1} for {n} layers, got {reflector}")
+    if int(repeats) != repeats or repeats < 1:
+        raise ValueError("repeats must be a whole number >= 1")
+    if int(water_round_trips) != water_round_trips or water_round_trips < 0:
+        raise ValueError("water_round_trips must be a whole number >= 0")
+    c = np.zeros(n, dtype=np.int64)
+    c[: k + 1] = 2 * int(repeats)
+    c[0] += 2 * int(water_round_trips)
+    return c
+
+
+def event_times(thickness, velocity, offsets, crossings):
+    """Exact times of events that cross each flat layer a given number of times.
+
+    An event recorded at the surface with ray parameter ``p`` that crosses layer i ``n_i`` times
+    (flat layers: Snell's law keeps ``p`` at every reflection, so every crossing of layer i is at
+    the same angle ``asin(p v_i)``) arrives at offset
+    ``x(p) = sum_i n_i h_i v_i p / sqrt(1 - p^2 v_i^2)`` at time
+    ``t = sum_i n_i h_i / (v_i sqrt(1 - p^2 v_i^2))``; at zero offset ``t0 = sum_i n_i h_i / v_i``.
+    ``p`` is solved for at each offset to 1e-7 m, keeping the times within about 1e-10 s. The
+    counts fix the time but not the order of the bounces, so all paths that share them (e.g. the
+    j + 1 peg-legs with j water round trips before or after the deep reflection) share one time.
+
+    Parameters
+    ----------
+    thickness : array_like, shape (n,)
+        Layer thicknesses, m.
+    velocity : array_like, shape (n+1,)
+        Layer and half-space velocities, m/s (the half-space velocity does not affect times).
+    offsets : array_like, shape (nx,)
+        Source-receiver offsets, m; the sign is ignored.
+    crossings : array_like of int, shape (E, n) or (n,)
+        Times each event crosses each layer: even whole numbers, > 0 from layer 0 down to the
+        deepest layer the event reaches and 0 below it (a path that starts and ends at the
+        surface); see :func:`path_crossings`. 2 in layers 0..k is the primary of reflector k.
+
+    Returns
+    -------
+    times : ndarray, shape (E, nx)
+        Traveltime, s (shape (nx,) for a 1-D ``crossings``).
+    ray_parameter : ndarray, shape (E, nx)
+        Horizontal slowness, s/m.
+
+    Raises
+    ------
+    ValueError
+        If the model, offsets or crossing counts are invalid.
+
+    References
+    ----------
+    Snell's law; Sheriff, R. E. & Geldart, L. P., 1995, Exploration Seismology, 2nd ed.,
+    Cambridge (ray paths of multiple reflections in flat layers).
+    """
+    h, v = check_model(thickness, velocity)
+    c = np.asarray(crossings)
+    one = c.ndim == 1
+    c = np.atleast_2d(c)
+    if c.ndim != 2 or c.shape[1] != h.size:
+        raise ValueError(f"crossings must have shape (events, {h.size}), got {np.shape(crossings)}")
+    if not (np.all(np.isfinite(c)) and np.all(c == np.round(c)) and np.all(c >= 0)):
+        raise ValueError("crossings must be whole numbers >= 0")
+    if np.any(c % 2):
+        raise ValueError("every layer must be crossed an even number of times (surface to surface)")
+    on = c > 0
+    if not np.all(on[:, 0]) or np.any(~on[:, :-1] & on[:, 1:]):
+        raise ValueError("each event must cross layer 0 and every layer down to its deepest one")
+    x = np.atleast_1d(np.asarray(offsets, dtype=np.float64))
+    if x.ndim != 1 or not np.all(np.isfinite(x)):
+        raise ValueError("offsets must be a finite 1-D array in metres")
+    t, p = trace_rays(h[None], v[None, :-1], x[None], c.astype(np.int64))
+    return (t[0, 0], p[0, 0]) if one else (t[0], p[0])
 
 
 def best_fit_stacking_velocity(t0, offsets, times, mask=None, free_intercept=True):

@@ -2,13 +2,18 @@
 
 Each CMP has its own flat, layered 1D model (a slow, smooth lateral change along the line is
 optional). Every trace holds the exact ray-traced primary reflections of its CMP's model as
-zero-phase Ricker wavelets evaluated at the exact fractional event times, optionally the
-first-order free-surface multiples, and optionally band-limited random noise. There is no
-spherical divergence, as if the data had been gained, and no direct wave, refraction or ghost.
+zero-phase Ricker wavelets evaluated at the exact fractional event times, optionally
+free-surface multiples (the first-order multiple of every reflector, water-layer reverberations
+of the sea floor and peg-legs of the deeper reflectors, layer 0 being the water), and optionally
+band-limited random noise. There is no spherical divergence, as if the data had been gained, no
+transmission loss, and no direct wave, refraction, ghost or interbed multiple.
 
 References
 ----------
 Ricker, N., 1953, The form and laws of propagation of seismic wavelets, Geophysics 18, 10-40.
+
+Sheriff, R. E. & Geldart, L. P., 1995, Exploration Seismology, 2nd ed., Cambridge (free-surface
+multiples, water-layer reverberations, peg-leg multiples).
 
 Gardner, G. H. F., Gardner, L. W. & Gregory, A. R., 1974, Formation velocity and density: the
 diagnostic basics for stratigraphic traps, Geophysics 39, 770-780.
@@ -31,9 +36,11 @@ from scipy.signal import fftconvolve
 from velspec import __version__
 from velspec.errors import ParameterError
 from velspec.synth.layers import (
+    best_fit_stacking_velocity,
     check_model,
     critical_fade,
     gardner_density,
+    path_crossings,
     reflection_coefficients,
     rms_velocity,
     stacking_velocity,
@@ -41,11 +48,22 @@ from velspec.synth.layers import (
     zero_offset_times,
 )
 
-__all__ = ["LineSpec", "LineTruth", "make_line", "demo_spec", "default_model", "ricker"]
+__all__ = [
+    "LineSpec",
+    "LineTruth",
+    "MultipleEvents",
+    "make_line",
+    "demo_spec",
+    "reverb_spec",
+    "default_model",
+    "reverb_model",
+    "ricker",
+]
 
 _FOOT = 0.3048  # m
 _COORD_SCALAR = -100  # SEG-Y: negative scalar divides, so coordinates are stored in hundredths
 _WAVELET_HALF = 1.5  # Ricker half-length in periods of the peak frequency: beyond, |w| < 1e-8
+_MAX_ORDER = 50  # reverberation / peg-leg orders; far beyond any audible one (|R|^50 ~ 0)
 
 
 def default_model():
@@ -132,12 +150,30 @@ class LineSpec:
     peak_frequency : float
         Peak frequency of the Ricker wavelet, Hz.
     snr : float
-        Signal-to-noise ratio: the RMS of the noise-free traces over all samples of the line
-        divided by the RMS of the added noise. The noise is white Gaussian noise filtered with the
-        same Ricker wavelet (so it shares the signal's band), independent from trace to trace.
+        Signal-to-noise ratio: the RMS of the noise-free *primaries-only* traces over all
+        samples of the line divided by the RMS of the added noise. Multiples do not count as
+        signal, so adding them leaves the noise level unchanged (with no multiples this is the
+        RMS of the noise-free traces). The noise is white Gaussian noise filtered with the same
+        Ricker wavelet (so it shares the signal's band), independent from trace to trace.
         ``inf`` adds none.
     multiples : bool
-        Add the first-order free-surface multiple of every reflector, amplitude ``-R^2``.
+        Add the first-order free-surface multiple of every reflector (the primary path twice,
+        one bounce at the free surface), amplitude ``-R_k^2``. The one of the sea floor is the
+        order-1 reverberation and is made once when ``reverberation_order >= 1``.
+    reverberation_order : int
+        Add the water-layer reverberations of the sea floor (reflector 0, the base of layer 0,
+        the water) of orders m = 1 .. ``reverberation_order``: order m crosses the water
+        2 (m + 1) times, amplitude ``(-1)^m R_wb^(m+1)``. 0 adds none.
+    pegleg_order : int
+        Add the peg-legs of every deeper reflector k >= 1 with j = 1 .. ``pegleg_order`` extra
+        round trips in the water: they cross the water 2 (j + 1) times and layers 1..k twice.
+        In flat layers the j + 1 paths that make their water trips before or after the deep
+        reflection arrive together, so the amplitude is ``(-1)^j (j + 1) R_wb^j R_k``. 0 adds
+        none; needs a model with at least two layers.
+    seafloor_reflection : float or None
+        Normal-incidence reflection coefficient of the sea floor ``R_wb``, used for its
+        primary and every multiple, e.g. 0.3-0.5 for a hard sea floor; ``|R| < 1``. None takes
+        the impedance contrast of the model (Gardner densities unless ``density`` is given).
     lateral : float
         Fractional amplitude of the slow lateral change: every layer velocity and thickness of
         CMP b is scaled by ``1 + lateral * sin(pi * xi_b + phase)``, ``xi_b`` running from 0 to 1
@@ -166,6 +202,17 @@ class LineSpec:
         x of the centre of the first CMP bin, m.
     line_y : float
         y of every source, receiver and CMP, m.
+
+    Notes
+    -----
+    Amplitudes ignore transmission losses and use -1 for the free surface: every event is the
+    product of the reflection coefficients it meets (times the number of distinct paths that
+    share its time) and the critical-angle fade of :func:`velspec.synth.layers.critical_fade`,
+    applied as for the primaries with the incidence sine ``p * max(v[0..K+1])`` of the deepest
+    reflector K that the event reaches. Interbed multiples (any path reflected off the
+    underside of an interface, even one that shares a first-order multiple's time), peg-legs in
+    layers other than the water, and combinations of the kinds above (e.g. a reverberating
+    first-order multiple) are not modelled.
     """
 
     ncmp: int = 100
@@ -180,6 +227,9 @@ class LineSpec:
     peak_frequency: float = 25.0
     snr: float = float("inf")
     multiples: bool = False
+    reverberation_order: int = 0
+    pegleg_order: int = 0
+    seafloor_reflection: object = None
     lateral: float = 0.0
     model: tuple = field(default_factory=default_model)
     density: object = None
@@ -230,6 +280,24 @@ class LineSpec:
         if self.density is not None:
             rho = np.asarray(self.density, dtype=np.float64)
             need(rho.shape == v.shape and np.all(rho > 0), "density needs n+1 values > 0 kg/m^3")
+        for name in ("reverberation_order", "pegleg_order"):
+            val = getattr(self, name)
+            need(
+                isinstance(val, (int, np.integer)) and not isinstance(val, bool)
+                and 0 <= val <= _MAX_ORDER,
+                f"{name} must be a whole number from 0 to {_MAX_ORDER}, got {val!r}",
+            )
+        need(
+            self.pegleg_order == 0 or h.size >= 2,
+            "pegleg_order needs a model with a reflector below the sea floor (at least 2 layers)",
+        )
+        if self.seafloor_reflection is not None:
+            r0 = self.seafloor_reflection
+            need(
+                isinstance(r0, (int, float, np.integer, np.floating)) and not isinstance(r0, bool)
+                and np.isfinite(r0) and -1.0 < r0 < 1.0,
+                f"seafloor_reflection must be a number with |R| < 1 or None, got {r0!r}",
+            )
 
     def fold(self):
         """Nominal CMP fold, ``channels * group_interval / (2 * shot_interval)``."""
@@ -247,6 +315,99 @@ class LineSpec:
 def demo_spec():
     """The line made by ``velspec demo``: 100 CMPs, S/N 4, a 3 % lateral change, no multiples."""
     return LineSpec(ncmp=100, snr=4.0, lateral=0.03, seed=7)
+
+
+def reverb_model():
+    """An invented shelf model: shallow water over a hard sea floor (thickness, velocity).
+
+    180 m of water (0.24 s two-way) over a cemented sea floor, a slower mudstone under it, a
+    fast sand, then compacting clastics and carbonates down to a last reflector near 2.78 s.
+    Every layer below the water is at least 240 ms two-way thick. The reflector times are
+    chosen so that the sea-floor reverberations (every 0.24 s) and the peg-legs of the shallow
+    reflectors fall within one or two wavelet periods of deeper primaries.
+
+    Returns
+    -------
+    thickness : ndarray, shape (8,)
+        m.
+    velocity : ndarray, shape (9,)
+        m/s, the last one being the half-space.
+    """
+    thickness = np.array([180.0, 260.0, 231.25, 391.0, 518.0, 704.0, 936.0, 738.0])
+    velocity = np.array([1500.0, 2000.0, 1850.0, 2300.0, 2800.0, 3200.0, 3600.0, 4100.0, 4600.0])
+    return thickness, velocity
+
+
+def reverb_spec():
+    """A hard line for a velocity picker: strong water-layer multiples at S/N 1.
+
+    :func:`reverb_model` (water 180 m deep, 0.24 s two-way) with a sea-floor reflection
+    coefficient of 0.4, sea-floor reverberations to order 6, peg-legs of every deeper reflector
+    with up to 3 extra water round trips, the first-order multiples of all reflectors, a 3 %
+    lateral change, S/N 1 (on the primaries alone), 100 CMPs, 96 channels, 4 ms samples to
+    3.2 s. At zero offset the order-1 and order-2 reverberations (-0.16, +0.064) and the first
+    and second peg-legs (-0.8 R_k and +0.48 R_k) are as strong as or stronger than the deeper
+    primaries (Gardner reflection coefficients R_k of about 0.02-0.14), and the multiples
+    arrive within a wavelet period of several deeper primaries; over the line the multiples
+    carry about as much energy as the primaries.
+
+    Returns
+    -------
+    LineSpec
+    """
+    return LineSpec(
+        ncmp=100,
+        channels=96,
+        dt=0.004,
+        nsamples=801,
+        snr=1.0,
+        lateral=0.03,
+        model=reverb_model(),
+        seafloor_reflection=0.4,
+        multiples=True,
+        reverberation_order=6,
+        pegleg_order=3,
+        seed=11,
+    )
+
+
+@dataclass
+class MultipleEvents:
+    """Where the multiples of a synthetic line are, CMP by CMP.
+
+    Returned by :meth:`LineTruth.multiple_events`; events in the order first-order multiples,
+    reverberations (by order), peg-legs (by reflector, then water round trips).
+
+    Attributes
+    ----------
+    kind : ndarray of str, shape (E,)
+        ``"first-order"``, ``"reverberation"`` or ``"peg-leg"``.
+    reflector : ndarray of int64, shape (E,)
+        Deepest reflector the event reaches (0 = sea floor).
+    order : ndarray of int64, shape (E,)
+        Reverberation order m, peg-leg water round trips j, or 1 for a first-order multiple.
+    crossings : ndarray of int64, shape (E, n)
+        Times the event crosses each layer.
+    t0 : ndarray, shape (ncmp, E)
+        Zero-offset time, s.
+    amplitude : ndarray, shape (ncmp, E)
+        Amplitude at zero offset (dimensionless; the primaries' is their reflection
+        coefficient).
+    vstack : ndarray, shape (ncmp, E)
+        Best-fit stacking velocity over the CMP's offsets after the stretch mute, m/s; NaN where
+        fewer than two offsets survive.
+    max_offset : ndarray, shape (ncmp, E)
+        Largest offset used in the fit, m; NaN where none survives.
+    """
+
+    kind: np.ndarray
+    reflector: np.ndarray
+    order: np.ndarray
+    crossings: np.ndarray
+    t0: np.ndarray
+    amplitude: np.ndarray
+    vstack: np.ndarray
+    max_offset: np.ndarray
 
 
 @dataclass
@@ -270,9 +431,11 @@ class LineTruth:
     density : ndarray, shape (ncmp, n+1)
         Densities, kg/m^3.
     reflection_coefficient : ndarray, shape (ncmp, n)
-        Normal-incidence reflection coefficients (the primaries' amplitude at zero offset).
+        Normal-incidence reflection coefficients (the primaries' amplitude at zero offset),
+        with ``spec.seafloor_reflection`` for reflector 0 when it is set.
     t0 : ndarray, shape (ncmp, n)
-        Zero-offset two-way times of the reflectors, s (the multiples are at ``2 * t0``).
+        Zero-offset two-way times of the reflectors, s (for the multiples see
+        :meth:`multiple_events`).
     vrms : ndarray, shape (ncmp, n)
         RMS velocities at the reflectors, m/s.
     offsets : ndarray, shape (ncmp, maxfold)
@@ -282,9 +445,12 @@ class LineTruth:
     ntraces : int
         Traces in the file.
     signal_rms : float
-        RMS of the noise-free traces over all samples of the line.
+        RMS of the noise-free primaries-only traces over all samples of the line, the signal of
+        ``spec.snr`` (0 when ``snr`` is inf: no measuring pass is made).
     noise_rms : float
         Standard deviation of the added noise (0 when ``snr`` is inf).
+    multiple_rms : float
+        RMS of the multiples alone over all samples of the line (0 when ``snr`` is inf).
     """
 
     spec: LineSpec
@@ -302,6 +468,7 @@ class LineTruth:
     ntraces: int
     signal_rms: float
     noise_rms: float
+    multiple_rms: float = 0.0
 
     def stacking_velocity(self, offsets=None, stretch_limit=0.3):
         """Best-fit stacking velocity of each CMP's exact reflection times.
@@ -329,6 +496,115 @@ class LineTruth:
             for b in range(self.cmp.size)
         ]
         return np.array([o[0] for o in out]), np.array([o[1] for o in out])
+
+    def multiple_events(self, offsets=None, stretch_limit=0.3):
+        """Where the modelled multiples are, CMP by CMP, to check that no pick sits on one.
+
+        For each multiple event of the line (see :class:`LineSpec` for the kinds), at every
+        CMP: its zero-offset time ``sum n_i h_i / v_i``, its amplitude at zero offset, and the
+        velocity of the hyperbola that best fits its exact times (least squares of
+        ``t^2 = a + b x^2`` over the offsets with NMO stretch ``(t - t0) / t0 <= stretch_limit``,
+        as :meth:`stacking_velocity` does for the primaries; offsets where the critical fade
+        has silenced the event are kept, as for the primaries).
+
+        Parameters
+        ----------
+        offsets : array_like, optional
+            Offsets used, m: (k,) for the same spread at every CMP, (ncmp, k) per CMP (NaN
+            ignored), or None for each CMP's own offsets in the file.
+        stretch_limit : float or None
+            Largest fractional NMO stretch kept; None or inf keeps every offset.
+
+        Returns
+        -------
+        MultipleEvents
+            Arrays of shape (ncmp, E) and per-event labels of shape (E,); E = 0 when the line
+            has no multiples.
+
+        References
+        ----------
+        Sheriff & Geldart, 1995, Exploration Seismology, Cambridge (multiples in flat layers).
+        Taner, M. T. & Koehler, F., 1969, Geophysics 34, 859-881 (stacking velocity).
+        """
+        table = _multiple_table(self.spec, self.thickness.shape[1])
+        nb, ne = self.cmp.size, table.crossings.shape[0]
+        x = self.offsets if offsets is None else np.asarray(offsets, dtype=np.float64)
+        x = np.abs(np.broadcast_to(x, (nb, x.shape[-1])))
+        finite = np.isfinite(x)
+        h, v = self.thickness, self.velocity[:, :-1]
+        N = table.crossings.astype(np.float64)
+        t0 = (N[None] * (h / v)[:, None, :]).sum(axis=2)
+        amp = table.amplitude(self.reflection_coefficient)
+        if ne == 0:
+            empty = np.zeros((nb, 0))
+            return MultipleEvents(
+                table.kind, table.reflector, table.order, table.crossings, empty, empty,
+                empty, empty,
+            )
+        t, _ = trace_rays(h, v, np.where(finite, x, 0.0), table.crossings)
+        keep = np.broadcast_to(finite[:, None, :], t.shape)
+        if stretch_limit is not None and np.isfinite(stretch_limit):
+            keep = keep & ((t - t0[..., None]) / t0[..., None] <= stretch_limit)
+        xx = np.broadcast_to(x[:, None, :], t.shape)
+        vs = best_fit_stacking_velocity(
+            t0.ravel(), xx.reshape(nb * ne, -1), t.reshape(nb * ne, -1),
+            mask=keep.reshape(nb * ne, -1),
+        ).reshape(nb, ne)
+        xm = np.where(keep, xx, -np.inf).max(axis=2)
+        return MultipleEvents(
+            kind=table.kind,
+            reflector=table.reflector,
+            order=table.order,
+            crossings=table.crossings,
+            t0=t0,
+            amplitude=amp,
+            vstack=vs,
+            max_offset=np.where(np.isfinite(xm), xm, np.nan),
+        )
+
+
+@dataclass
+class _Table:
+    """The multiple events of a spec: crossings (E, n), labels (E,), and their amplitude rule."""
+
+    crossings: np.ndarray
+    kind: np.ndarray
+    reflector: np.ndarray
+    order: np.ndarray
+    sign: np.ndarray  # (E,)
+    paths: np.ndarray  # (E,) distinct ray paths sharing the event's time
+    power_wb: np.ndarray  # (E,) power of R_wb
+    power_deep: np.ndarray  # (E,) power of R_k of the deepest reflector (k >= 1)
+
+    def amplitude(self, R):
+        """Zero-offset amplitudes (ncmp, E) from reflection coefficients R (ncmp, n)."""
+        R = np.asarray(R, dtype=np.float64)
+        rk = R[:, self.reflector] ** self.power_deep
+        return (self.sign * self.paths) * R[:, :1] ** self.power_wb * rk
+
+
+def _multiple_table(spec, n):
+    """Every multiple event that ``spec`` asks for in a model of n layers (layer 0 the water)."""
+    rows = []  # (crossings, kind, reflector, order, sign, paths, power of R_wb, power of R_k)
+    if spec.multiples:
+        # the sea floor's first-order multiple is the order-1 reverberation: made only once
+        for k in range(1 if spec.reverberation_order >= 1 else 0, n):
+            pw, pk = (2, 0) if k == 0 else (0, 2)
+            rows.append((path_crossings(n, k, repeats=2), "first-order", k, 1, -1, 1, pw, pk))
+    for m in range(1, spec.reverberation_order + 1):
+        rows.append(
+            (path_crossings(n, 0, repeats=m + 1), "reverberation", 0, m, (-1) ** m, 1, m + 1, 0)
+        )
+    for k in range(1, n if spec.pegleg_order else 1):
+        for j in range(1, spec.pegleg_order + 1):
+            c = path_crossings(n, k, water_round_trips=j)
+            rows.append((c, "peg-leg", k, j, (-1) ** j, j + 1, j, 1))
+    if not rows:
+        z = np.zeros(0, dtype=np.int64)
+        return _Table(np.zeros((0, n), dtype=np.int64), np.zeros(0, dtype="<U13"), z, z, z, z, z, z)
+    cols = list(zip(*rows))
+    ints = [np.array(c, dtype=np.int64) for c in cols[2:]]
+    return _Table(np.array(cols[0], dtype=np.int64), np.array(cols[1], dtype="<U13"), *ints)
 
 
 def _cmp_models(spec):
@@ -379,7 +655,11 @@ class _Synth:
         self.spec = spec
         self.h, self.v, self.rho = _cmp_models(spec)
         self.R = np.array([reflection_coefficients(v, r) for v, r in zip(self.v, self.rho)])
+        if spec.seafloor_reflection is not None:
+            self.R[:, 0] = float(spec.seafloor_reflection)
         self.vmax_below = np.maximum.accumulate(self.v, axis=1)[:, 1:]  # for the incidence sine
+        self.table = _multiple_table(spec, self.h.shape[1])
+        self.mult_amp = self.table.amplitude(self.R)  # (ncmp, E) at zero offset
         self.half = _WAVELET_HALF / spec.peak_frequency
         self.nw = int(np.ceil(2.0 * self.half / spec.dt)) + 2
         hk = int(np.ceil(self.half / spec.dt))
@@ -391,20 +671,33 @@ class _Synth:
         return self.spec.near_offset + chan * self.spec.group_interval
 
     def signal(self, chan, bins):
-        """Noise-free traces (m, nsamples), float64."""
-        sp = self.spec
+        """Noise-free traces (m, nsamples), float64: primaries plus multiples."""
+        times, amps = self._events(chan, bins, primaries=True, multiples=True)
+        return self._place(times, amps)
+
+    def parts(self, chan, bins):
+        """Noise-free primaries-only and multiples-only traces, each (m, nsamples)."""
+        prim = self._place(*self._events(chan, bins, primaries=True, multiples=False))
+        mult = self._place(*self._events(chan, bins, primaries=False, multiples=True))
+        return prim, mult
+
+    def _events(self, chan, bins, primaries, multiples):
+        """Times and amplitudes (m, E) of the events of each trace."""
         x = self.offsets(chan)[:, None]
         h, v = self.h[bins], self.v[bins]
-        t, p = trace_rays(h, v[:, :-1], x, 2)
-        amp = self.R[bins][:, :, None] * critical_fade(p * self.vmax_below[bins][:, :, None])
-        times, amps = t[..., 0], amp[..., 0]
-        if sp.multiples:
-            tm, pm = trace_rays(h, v[:, :-1], x, 4)
-            sine = pm * self.vmax_below[bins][:, :, None]
-            am = -(self.R[bins] ** 2)[:, :, None] * critical_fade(sine)
-            times = np.concatenate([times, tm[..., 0]], axis=1)
-            amps = np.concatenate([amps, am[..., 0]], axis=1)
-        return self._place(times, amps)
+        times, amps = [np.zeros((bins.size, 0))], [np.zeros((bins.size, 0))]
+        if primaries:
+            t, p = trace_rays(h, v[:, :-1], x, 2)
+            amp = self.R[bins][:, :, None] * critical_fade(p * self.vmax_below[bins][:, :, None])
+            times.append(t[..., 0])
+            amps.append(amp[..., 0])
+        if multiples and self.table.crossings.shape[0]:
+            tm, pm = trace_rays(h, v[:, :-1], x, self.table.crossings)
+            # the fade of the deepest reflector reached, as for its primary
+            sine = pm[..., 0] * self.vmax_below[bins][:, self.table.reflector]
+            times.append(tm[..., 0])
+            amps.append(self.mult_amp[bins] * critical_fade(sine))
+        return np.concatenate(times, axis=1), np.concatenate(amps, axis=1)
 
     def _place(self, times, amps):
         """Sum Ricker wavelets at exact fractional times; (m, E) -> (m, nsamples)."""
@@ -448,8 +741,27 @@ def _text_header(spec, ntraces):
         f"SYNTHETIC DATA made by velspec {__version__}; not a field recording.",
         "Flat layers under each CMP, exact ray-traced reflection times, zero-phase Ricker "
         f"wavelet of peak {spec.peak_frequency:g} Hz, no spherical divergence"
-        + (", free-surface multiples" if spec.multiples else "")
-        + (f", band-limited noise S/N {spec.snr:g}" if np.isfinite(spec.snr) else ", no noise")
+        + (", first-order free-surface multiples" if spec.multiples else "")
+        + (
+            f", sea-floor reverberations to order {spec.reverberation_order}"
+            if spec.reverberation_order
+            else ""
+        )
+        + (
+            f", peg-legs with up to {spec.pegleg_order} water round trips"
+            if spec.pegleg_order
+            else ""
+        )
+        + (
+            f", sea-floor reflection coefficient {spec.seafloor_reflection:g}"
+            if spec.seafloor_reflection is not None
+            else ""
+        )
+        + (
+            f", band-limited noise S/N {spec.snr:g} (on the primaries)"
+            if np.isfinite(spec.snr)
+            else ", no noise"
+        )
         + (f", lateral change {spec.lateral:g}" if spec.lateral else "")
         + ".",
         f"CMP {spec.first_cmp} to {spec.first_cmp + spec.ncmp - 1}, nominal fold {spec.fold():g}, "
@@ -482,7 +794,8 @@ def make_line(path, spec=None):
     The file is written batch by batch (one shot, or one CMP, at a time) to ``path + ".partial"``
     and renamed into place when complete, so memory stays flat whatever the line's length and no
     half-written file is left under ``path``. When ``spec.snr`` is finite the signal is made
-    twice: a first pass measures the RMS of the noise-free line, which sets the noise level.
+    twice: a first pass measures the RMS of the noise-free primaries, which sets the noise level
+    (and the RMS of the multiples, for the record).
 
     Parameters
     ----------
@@ -525,10 +838,13 @@ def make_line(path, spec=None):
     pos = np.arange(ntr) - np.repeat(np.cumsum(fold) - fold, fold)
     offs[bins[order], pos] = synth.offsets(chan[order])
 
-    signal_rms, noise_rms = 0.0, 0.0
+    signal_rms, noise_rms, multiple_rms = 0.0, 0.0, 0.0
     if np.isfinite(spec.snr):
-        ss = sum(float(np.sum(synth.signal(chan[i], bins[i]) ** 2)) for i in blocks)
-        signal_rms = np.sqrt(ss / (ntr * spec.nsamples))
+        # the noise level is set by the primaries alone (LineSpec.snr); multiples are measured too
+        ss = np.zeros(2)
+        for i in blocks:
+            ss += [float(np.sum(a**2)) for a in synth.parts(chan[i], bins[i])]
+        signal_rms, multiple_rms = np.sqrt(ss / (ntr * spec.nsamples))
         noise_rms = signal_rms / spec.snr
 
     scale = 1.0 / _FOOT if spec.feet else 1.0
@@ -621,4 +937,5 @@ def make_line(path, spec=None):
         ntraces=int(ntr),
         signal_rms=float(signal_rms),
         noise_rms=float(noise_rms),
+        multiple_rms=float(multiple_rms),
     )
