@@ -22,7 +22,9 @@ def test_best_path_matches_exhaustive_search(rng):
                 total = sum(score[n, p] for n, p in enumerate(path))
                 if total > best:
                     best, best_path = total, path
-        got = _best_path(score, lo.astype(np.int64), hi.astype(np.int64))
+        lo2 = np.tile(lo, (nnode, 1)).astype(np.int64)
+        hi2 = np.tile(hi, (nnode, 1)).astype(np.int64)
+        got = _best_path(score, lo2, hi2)
         assert np.isclose(sum(score[n, p] for n, p in enumerate(got)), best)
         assert tuple(got) == best_path
 
@@ -48,13 +50,14 @@ def test_weak_pick_implying_impossible_interval_velocity_is_dropped():
     # v_int^2 = (1.5*1500^2 - 2000^2)/0.5 < 0: impossible, and it is weak: dropped.
     t = np.array([1.0, 1.5, 2.0])
     coh = np.array([0.9, 0.2, 0.9])
-    ok = consistent_picks(t, np.array([2000.0, 2000.0, 2500.0]), coh, (1400.0, 7000.0), 0.5)
+    ok = consistent_picks(t, np.array([2000.0, 2000.0, 2500.0]), coh, (1400.0, 7000.0))
     assert ok.all()
-    bad = consistent_picks(t, np.array([2000.0, 1500.0, 2500.0]), coh, (1400.0, 7000.0), 0.5)
+    bad = consistent_picks(t, np.array([2000.0, 1500.0, 2500.0]), coh, (1400.0, 7000.0))
     assert list(bad) == [True, False, True]
+    # Even a strong contradiction goes: no pair of picks may imply a non-physical layer.
     strong = consistent_picks(t, np.array([2000.0, 1500.0, 2500.0]), np.array([0.9, 0.8, 0.9]),
-                              (1400.0, 7000.0), 0.5)
-    assert strong.all()     # a strong contradiction stays, for Dix to force and flag
+                              (1400.0, 7000.0))
+    assert list(strong) == [True, False, True]
 
 
 def test_picks_sit_on_isolated_events():

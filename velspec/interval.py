@@ -95,6 +95,40 @@ def constrained_dix(t0: np.ndarray, vrms: np.ndarray, vmin: float, vmax: float) 
     return DixResult(t0=t0, vint=vint, vint_raw=vint_raw, forced=forced)
 
 
+def dix_sigma(t0: np.ndarray, vrms: np.ndarray, sigma: np.ndarray, vint: np.ndarray) -> np.ndarray:
+    """Uncertainty of each Dix interval velocity from the uncertainties of the picks, m/s.
+
+    First-order propagation through Dix (1955), picks independent: with b_i = t_i V_i^2 and
+    u_k = (b_k - b_{k-1}) / (t_k - t_{k-1}),
+
+        sigma_u^2 = ((2 t_k V_k s_k)^2 + (2 t_{k-1} V_{k-1} s_{k-1})^2) / (t_k - t_{k-1})^2,
+        sigma_vint = sigma_u / (2 vint),
+
+    the first interval (from time zero) having sigma_vint = s_1 (its velocity is V_1 itself).
+    Thin intervals between uncertain picks get large uncertainties, as they should.
+
+    Parameters
+    ----------
+    t0, vrms, sigma : ndarray (n,)
+        Pick times (s, positive, increasing), stacking velocities and their uncertainties (m/s).
+    vint : ndarray (n,)
+        Interval velocity of each interval, m/s (the constrained values).
+
+    References
+    ----------
+    Dix, C. H., 1955, Seismic velocities from surface measurements: Geophysics 20, 68-86.
+    """
+    t = np.asarray(t0, dtype=np.float64)
+    g = 2.0 * t * np.asarray(vrms, dtype=np.float64) * np.asarray(sigma, dtype=np.float64)
+    out = np.empty(t.size)
+    if t.size == 0:
+        return out
+    out[0] = float(sigma[0])
+    su = np.sqrt(g[1:] ** 2 + g[:-1] ** 2) / np.diff(t)
+    out[1:] = su / (2.0 * np.asarray(vint, dtype=np.float64)[1:])
+    return out
+
+
 @dataclass
 class Fields:
     """Velocity functions of one CMP on the t0 axis, float32 (nt,) each, plus QC."""
@@ -104,15 +138,18 @@ class Fields:
     vint_raw: np.ndarray
     forced: np.ndarray
     forced_count: int
+    vint_sigma: np.ndarray | None = None
+    pick_vint_sigma: np.ndarray | None = None
 
 
 def fields_from_picks(t0_axis: np.ndarray, pick_t0: np.ndarray, pick_v: np.ndarray,
-                      params: IntervalParams) -> Fields:
+                      params: IntervalParams, pick_sigma: np.ndarray | None = None) -> Fields:
     """Stacking and interval velocity on every t0 sample from one CMP's picks.
 
     Between picks t0 * vrms^2 is linear (constant interval velocity); above the first pick the
     stacking velocity is held at the first pick's value (one layer from time zero); below the
-    last pick the last constrained interval velocity continues.
+    last pick the last constrained interval velocity continues. With ``pick_sigma`` (m/s) the
+    interval-velocity uncertainty (:func:`dix_sigma`) comes too, on every sample and per pick.
     """
     keep = pick_t0 > 0
     pick_t0, pick_v = pick_t0[keep], pick_v[keep]
@@ -131,8 +168,13 @@ def fields_from_picks(t0_axis: np.ndarray, pick_t0: np.ndarray, pick_v: np.ndarr
     with np.errstate(divide="ignore", invalid="ignore"):
         vrms = np.sqrt(b / t)
     vrms[t <= pick_t0[0]] = pick_v[0]
-    return Fields(vrms=vrms.astype(np.float32), vint=vint.astype(np.float32),
-                  vint_raw=vint_raw.astype(np.float32), forced=forced, forced_count=int(dix.forced.sum()))
+    fields = Fields(vrms=vrms.astype(np.float32), vint=vint.astype(np.float32),
+                    vint_raw=vint_raw.astype(np.float32), forced=forced, forced_count=int(dix.forced.sum()))
+    if pick_sigma is not None:
+        per_pick = dix_sigma(pick_t0, pick_v, np.asarray(pick_sigma)[keep], dix.vint)
+        fields.pick_vint_sigma = per_pick.astype(np.float32)
+        fields.vint_sigma = per_pick[k_int].astype(np.float32)
+    return fields
 
 
 def depth_fields(t0_axis: np.ndarray, vint: np.ndarray, dz: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

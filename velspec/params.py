@@ -135,6 +135,27 @@ class PickParams:
     vmin_top, vmax_top, vmin_bottom, vmax_bottom : float
         Velocity corridor: bounds at t0 = 0 and at the last sample, linear in between, m/s.
         0 means the scan range.
+    bounds : tuple of (t0, vmin, vmax) rows
+        Time-varying stacking-velocity bounds, s and m/s, linear between rows and held beyond
+        the first and last; empty for none. The tightest of corridor, bounds and guide band wins.
+    guide : str
+        Guide function: ``""`` none, ``"regional"`` the built-in trend of a velocity rising
+        linearly with depth (``regional_v0``, ``regional_gradient``), or the path of a CSV file
+        with columns ``t0_s,vrms_m_s`` (one function) or ``cmp,t0_s,vrms_m_s`` (one per CMP,
+        linear between the CMPs given, held beyond them).
+    guide_below, guide_above : float
+        Band around the guide, as fractions of it: the path stays within
+        ``guide * (1 - guide_below)`` .. ``guide * (1 + guide_above)`` (defaults 0.15, 0.25).
+    regional_v0, regional_gradient : float
+        The regional trend v(z) = v0 + k z: v0 in m/s (default 1500), k in 1/s (default 0.6).
+    multiple_margin : float
+        A coherent event slower than ``1 - multiple_margin`` times the traced function at the
+        same t0 is a likely multiple: recorded with a flag, never picked (default 0.08; 0 turns
+        the multiple checks off).
+    multiple_time_tolerance, multiple_velocity_tolerance : float
+        How close (s, and fraction of velocity) a pick must come to a surface multiple
+        predicted from two earlier events, t0 = t_a + t_b and V^2 = (t_a V_a^2 + t_b V_b^2) /
+        (t_a + t_b), to count as that multiple (defaults 0.04 s, about a scan window, and 0.03).
     min_coherence : float
         Coherence below which a local maximum along the path is not picked (default 0.1).
     min_prominence : float
@@ -146,10 +167,29 @@ class PickParams:
         Smallest time between two picks, s (default 0.1).
     tmin : float
         No picks above this t0, s (default 0.1).
-    consistency_ratio : float
-        Where two neighbouring picks imply an interval velocity outside the physical range of
-        [interval], the weaker is dropped when its coherence is below this fraction of the
-        stronger's (default 0.5); stronger contradictions are kept and flagged by Dix.
+    doubtful_coherence : float
+        Picks below this coherence are flagged doubtful (still used; default 0.25).
+    doubtful_sigma : float
+        Picks whose uncertainty exceeds this fraction of their velocity are flagged (still
+        used; default 0.03).
+    smooth_cmps : int
+        Spectrum smoothing along the line: the panel picked at a CMP is the triangle-weighted
+        mean of the panels of the CMPs within +-smooth_cmps of it (default 2; 0 turns it off).
+    lateral_cmps : int
+        Half width, in CMPs, of the running median along the line that the line pass compares
+        each pick with (default 5; 0 turns the outlier rejection off).
+    outlier_tolerance, outlier_sigmas : float
+        A pick is a lateral outlier, and left out, where it differs from that median by more
+        than ``outlier_tolerance`` of it (default 0.04) and by more than ``outlier_sigmas``
+        times its own uncertainty (default 3). A step in velocity along the line survives: the
+        median follows it.
+    edits : str
+        Path of a CSV of picks a person made or edited (columns ``cmp,t0_s,vrms_m_s``); empty
+        for none.
+    edit_mode : str
+        ``"replace"``: at the CMPs in ``edits`` their picks replace the automatic ones;
+        ``"guide"``: they guide the automatic picking there (band ``guide_below`` /
+        ``guide_above``).
     """
 
     node_interval: float = 0.024
@@ -160,15 +200,66 @@ class PickParams:
     vmax_top: float = 0.0
     vmin_bottom: float = 0.0
     vmax_bottom: float = 0.0
+    bounds: tuple = ()
+    guide: str = ""
+    guide_below: float = 0.15
+    guide_above: float = 0.25
+    regional_v0: float = 1500.0
+    regional_gradient: float = 0.6
+    multiple_margin: float = 0.08
+    multiple_time_tolerance: float = 0.04
+    multiple_velocity_tolerance: float = 0.03
     min_coherence: float = 0.1
     min_prominence: float = 0.15
     min_live: int = 6
     min_separation: float = 0.1
     tmin: float = 0.1
-    consistency_ratio: float = 0.5
+    doubtful_coherence: float = 0.25
+    doubtful_sigma: float = 0.03
+    smooth_cmps: int = 2
+    lateral_cmps: int = 5
+    outlier_tolerance: float = 0.04
+    outlier_sigmas: float = 3.0
+    edits: str = ""
+    edit_mode: str = "replace"
+
+    def __post_init__(self):
+        # TOML and JSON give lists; a frozen, hashable record wants tuples.
+        if not isinstance(self.bounds, tuple):
+            try:
+                rows = tuple(tuple(float(x) for x in row) for row in self.bounds)
+            except (TypeError, ValueError):
+                raise ParameterError("bounds must be rows of three numbers: t0 (s), vmin, vmax (m/s)") from None
+            object.__setattr__(self, "bounds", rows)
 
     def validate(self) -> None:
-        _check(0 <= self.consistency_ratio <= 1, "consistency_ratio must be in [0, 1]")
+        if self.bounds:
+            _check(all(len(row) == 3 for row in self.bounds),
+                   "bounds must be rows of three numbers: t0 (s), vmin, vmax (m/s)")
+            table = [tuple(map(float, row)) for row in self.bounds]
+            _check(all(all(math.isfinite(x) for x in row) for row in table), "bounds must be finite numbers")
+            _check(all(b[0] > a[0] for a, b in zip(table, table[1:])), "bounds rows must have increasing t0")
+            _check(all(0 < row[1] < row[2] for row in table),
+                   "each bounds row needs 0 < vmin < vmax (m/s)")
+        _check(isinstance(self.guide, str), "guide must be '', 'regional' or the path of a CSV file")
+        _check(_finite_nonneg(self.guide_below) and self.guide_below < 1, "guide_below must be in [0, 1)")
+        _check(_finite_nonneg(self.guide_above), "guide_above must be >= 0")
+        _check(_finite_positive(self.regional_v0), "regional_v0 must be a positive velocity in m/s")
+        _check(_finite_nonneg(self.regional_gradient) and self.regional_gradient <= 10,
+               "regional_gradient must be in [0, 10] 1/s")
+        _check(_finite_nonneg(self.multiple_margin) and self.multiple_margin < 1, "multiple_margin must be in [0, 1)")
+        _check(_finite_positive(self.multiple_time_tolerance), "multiple_time_tolerance must be > 0 s")
+        _check(_finite_positive(self.multiple_velocity_tolerance) and self.multiple_velocity_tolerance < 1,
+               "multiple_velocity_tolerance must be in (0, 1)")
+        _check(0 <= self.doubtful_coherence <= 1, "doubtful_coherence must be in [0, 1]")
+        _check(_finite_positive(self.doubtful_sigma), "doubtful_sigma must be > 0")
+        for name in ("smooth_cmps", "lateral_cmps"):
+            value = getattr(self, name)
+            _check(isinstance(value, int) and 0 <= value <= 1000, f"{name} must be an integer in 0..1000")
+        _check(_finite_positive(self.outlier_tolerance), "outlier_tolerance must be > 0")
+        _check(_finite_nonneg(self.outlier_sigmas), "outlier_sigmas must be >= 0")
+        _check(isinstance(self.edits, str), "edits must be the path of a CSV file, or empty")
+        _check(self.edit_mode in ("replace", "guide"), "edit_mode must be 'replace' or 'guide'")
         _check(_finite_positive(self.node_interval), "node_interval must be > 0 s")
         _check(_finite_nonneg(self.max_increase) and _finite_nonneg(self.max_decrease),
                "max_increase and max_decrease must be >= 0 (m/s)/s")

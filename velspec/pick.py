@@ -1,14 +1,23 @@
 """The pick stage: a velocity function through each coherence panel, and picks along it.
 
 A continuous stacking-velocity function is traced through the panel by dynamic programming:
-the path through a coarse grid of time nodes that maximises the summed coherence, with the
-velocity allowed to rise or fall only at bounded rates and kept inside a corridor that may vary
-with time. Picks are then put at the coherence maxima along that path and refined to sub-grid
-velocity by a parabola through the three panel values around the maximum.
+the path through a coarse grid of time nodes that maximises the summed coherence. The
+constraints act while the path is traced, not afterwards: the velocity stays inside bounds that
+may vary with time (a corridor, a table of bounds, a guide function with a band around it),
+rises or falls only at bounded rates, and never steps to a velocity that would imply, by Dix's
+relation, an interval velocity outside the physical range. Picks are then put at the coherence
+maxima along that path, refined to sub-grid velocity by a parabola, given an uncertainty from
+the shape of their peak, and checked pairwise against Dix so that no two picks imply a
+non-physical layer.
+
+Coherent events much slower than the traced function at the same t0 are recorded as likely
+multiples: a primary trend at that time is faster, so a slower event there has spent longer in
+slow (shallow) rock than any primary could. They are returned with a flag and never used.
 
 References
 ----------
 Bellman, R., 1957, Dynamic Programming: Princeton University Press (the optimal-path recursion).
+Dix, C. H., 1955, Seismic velocities from surface measurements: Geophysics 20, 68-86.
 """
 
 from __future__ import annotations
@@ -21,13 +30,33 @@ from scipy.signal import find_peaks, peak_widths
 
 from .params import PickParams
 
-
 MAX_NODE_INTERVAL = 0.25  # s: longer steps would blur events closer than this
+
+# Why a pick is doubtful or left out (bits of /picks/flags). EXCLUDED ones never enter a field.
+LOW_COHERENCE = 1      # coherence below PickParams.doubtful_coherence: used, but doubtful
+MULTIPLE = 2           # much slower than the traced primary trend at its t0: a likely multiple
+AT_BOUND = 4           # the peak lay beyond a velocity bound; picked at the bound (forced)
+DIX = 8                # with a stronger neighbour it implied an impossible interval velocity
+OUTLIER = 16           # rejected by the lateral regularisation of the line pass
+EDITED = 32            # put there by a person (a pick CSV in replace mode)
+OUTSIDE_GUIDE = 64     # outside the band around a person's guide function (revise, guide mode)
+WIDE = 128             # uncertainty above PickParams.doubtful_sigma of the velocity
+REPLACED = 256         # an automatic pick at a CMP whose picks a person replaced
+EXCLUDED = MULTIPLE | DIX | OUTLIER | OUTSIDE_GUIDE | REPLACED
+
+FLAG_NAMES = {LOW_COHERENCE: "low_coherence", MULTIPLE: "likely_multiple", AT_BOUND: "at_bound",
+              DIX: "impossible_interval_velocity", OUTLIER: "lateral_outlier", EDITED: "edited",
+              OUTSIDE_GUIDE: "outside_guide", WIDE: "wide_peak", REPLACED: "replaced"}
+
+# sigma = SIGMA_SCALE * half-width * noise / (peak - background): the location error of a peak of
+# that width and height in noise of that level. The scale was set so that the stated sigma matches
+# the scatter of picks about exact stacking velocities on generated lines (tests/test_uncertainty).
+SIGMA_SCALE = 3.3
 
 
 @dataclass
 class PickResult:
-    """Picks and the traced function of one CMP.
+    """Picks (and recognised multiples) of one CMP, and its traced function.
 
     Attributes
     ----------
@@ -37,6 +66,10 @@ class PickResult:
         Picked stacking velocities, m/s.
     coherence : float32 (npick,)
         Panel value at each pick.
+    sigma : float32 (npick,)
+        Velocity uncertainty of each pick (one standard deviation), m/s.
+    flags : uint16 (npick,)
+        Bits of :data:`FLAG_NAMES`; picks with any :data:`EXCLUDED` bit are not used.
     path : float32 (nt,)
         The traced velocity function on every t0 sample, m/s.
     """
@@ -44,16 +77,28 @@ class PickResult:
     t0: np.ndarray
     velocity: np.ndarray
     coherence: np.ndarray
+    sigma: np.ndarray
+    flags: np.ndarray
     path: np.ndarray
+
+    @property
+    def used(self) -> np.ndarray:
+        """Mask of the picks that enter the velocity fields."""
+        return (self.flags & EXCLUDED) == 0
+
+    def subset(self, mask: np.ndarray) -> "PickResult":
+        return PickResult(self.t0[mask], self.velocity[mask], self.coherence[mask], self.sigma[mask],
+                          self.flags[mask], self.path)
 
 
 @njit(cache=True, nogil=True)
 def _best_path(score, lo, hi, penalty=0.0):
     """Index path maximising sum score[n, path[n]] - penalty * |path[n] - path[n-1]|, with
-    path[n] in lo[path[n-1]]..hi[path[n-1]].
+    path[n] in lo[n, path[n-1]]..hi[n, path[n-1]].
 
-    score : float64 (nnode, nv), -inf where a velocity is outside the corridor.
-    lo, hi : int64 (nv,), inclusive range of indices reachable from each index at the next node.
+    score : float64 (nnode, nv), -inf where a velocity is outside the bounds.
+    lo, hi : int64 (nnode, nv), inclusive range of indices reachable at node n from each index
+        at node n-1 (row 0 unused).
     penalty : float, cost of one velocity sample of change between nodes (keeps the path still
         where no event pulls it).
     """
@@ -65,7 +110,7 @@ def _best_path(score, lo, hi, penalty=0.0):
         for a in range(nv):
             if acc[n - 1, a] == -np.inf:
                 continue
-            for b in range(lo[a], hi[a] + 1):
+            for b in range(lo[n, a], hi[n, a] + 1):
                 cand = acc[n - 1, a] + score[n, b] - penalty * abs(b - a)
                 # Ties go to the lower previous index, so the path does not depend on loop order.
                 if cand > acc[n, b]:
@@ -98,16 +143,19 @@ def _node_scores(panel, edges):
 
 
 @njit(cache=True, nogil=True)
-def _near_path_maxima(panel, centre, search):
-    """Row of the largest panel value within +-search rows of the path, and that value, per t0."""
+def _range_maxima(panel, lo, hi):
+    """Row of the largest panel value in rows lo[j]..hi[j] of each column j, and that value
+    (row -1 and value 0 where the range is empty)."""
     nv, nt = panel.shape
-    rows = np.empty(nt, dtype=np.int64)
-    values = np.empty(nt, dtype=np.float64)
+    rows = np.full(nt, -1, dtype=np.int64)
+    values = np.zeros(nt, dtype=np.float64)
     for j in range(nt):
-        lo = max(centre[j] - search, 0)
-        hi = min(centre[j] + search, nv - 1)
-        best = lo
-        for r in range(lo + 1, hi + 1):
+        a = max(lo[j], 0)
+        b = min(hi[j], nv - 1)
+        if a > b:
+            continue
+        best = a
+        for r in range(a + 1, b + 1):
             if panel[r, j] > panel[best, j]:   # first maximum wins, as argmax
                 best = r
         rows[j] = best
@@ -125,45 +173,171 @@ def corridor(t0: np.ndarray, params: PickParams, vmin: float, vmax: float) -> tu
     return top_lo + frac * (bot_lo - top_lo), top_hi + frac * (bot_hi - top_hi)
 
 
-def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray,
-                   params: PickParams) -> np.ndarray:
-    """The dynamic-programming velocity function on every t0 sample, m/s (float64)."""
-    nv, nt = panel.shape
+def regional_trend(t0: np.ndarray, v0: float, gradient: float) -> np.ndarray:
+    """Stacking (RMS) velocity of an earth whose velocity rises linearly with depth, m/s.
+
+    For v(z) = v0 + k z the one-way time to depth z is ln(1 + k z / v0) / k, so the velocity at
+    two-way time t is v0 exp(k t / 2) and the RMS velocity (Dix, 1955) down to t is
+
+        V(t) = v0 sqrt((exp(k t) - 1) / (k t)),   V(0) = v0.
+
+    Parameters
+    ----------
+    t0 : ndarray
+        Two-way times, s.
+    v0 : float
+        Velocity at the datum, m/s.
+    gradient : float
+        k, the rise of velocity with depth, 1/s ((m/s) per m); 0 gives a constant v0.
+    """
+    t = np.maximum(np.asarray(t0, dtype=np.float64), 0.0)
+    kt = gradient * t
+    # expm1(x)/x -> 1 as x -> 0; written so that a zero gradient or zero time is exact
+    ratio = np.where(kt > 1e-12, np.expm1(kt) / np.where(kt > 1e-12, kt, 1.0), 1.0 + 0.5 * kt)
+    return v0 * np.sqrt(ratio)
+
+
+def velocity_bounds(t0: np.ndarray, params: PickParams, vmin: float, vmax: float,
+                    guide: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Lower and upper stacking-velocity bounds at each t0, m/s, from every constraint given.
+
+    The scan range, the linear corridor (``vmin_top`` .. ``vmax_bottom``), the table
+    ``params.bounds`` of (t0, vmin, vmax) rows (linear between rows, held beyond the ends) and,
+    when ``guide`` (m/s on ``t0``) is given, the band ``guide * (1 - guide_below)`` ..
+    ``guide * (1 + guide_above)``; the tightest of them wins at each time.
+    """
+    lo, hi = corridor(t0, params, vmin, vmax)
+    if params.bounds:
+        table = np.asarray(params.bounds, dtype=np.float64)
+        lo = np.maximum(lo, np.interp(t0, table[:, 0], table[:, 1]))
+        hi = np.minimum(hi, np.interp(t0, table[:, 0], table[:, 2]))
+    if guide is not None:
+        lo = np.maximum(lo, guide * (1.0 - params.guide_below))
+        hi = np.minimum(hi, guide * (1.0 + params.guide_above))
+    return lo, hi
+
+
+def _node_grid(velocities: np.ndarray, t0: np.ndarray, params: PickParams) -> np.ndarray:
+    """Edges (sample indices) of the path's time nodes."""
+    nt = t0.size
     dt = t0[1] - t0[0] if nt > 1 else 1.0
     # Lengthen the node step until the slower nonzero rate allows one velocity sample per step;
     # rounding a fraction of a sample down would forbid that direction altogether.
     node = params.node_interval
-    widest = float(np.max(np.diff(velocities))) if nv > 1 else 0.0
+    widest = float(np.max(np.diff(velocities))) if velocities.size > 1 else 0.0
     for rate in (params.max_increase, params.max_decrease):
         if rate > 0:
             node = max(node, widest / rate)
     node = min(node, MAX_NODE_INTERVAL)
     step = max(int(np.ceil(node / dt - 1e-9)), 1)
-    edges = np.arange(0, nt + step, step)
-    edges[-1] = min(edges[-1], nt)
-    edges = np.unique(np.minimum(edges, nt))
-    score = _node_scores(np.ascontiguousarray(panel, dtype=np.float32), edges.astype(np.int64))
+    return np.unique(np.minimum(np.arange(0, nt + step, step), nt)).astype(np.int64)
+
+
+def _transitions(velocities: np.ndarray, node_t: np.ndarray, params: PickParams,
+                 vint_bounds: tuple[float, float] | None) -> tuple[np.ndarray, np.ndarray]:
+    """Reachable index ranges (nnode, nv) between successive nodes: the rate limits and, with
+    ``vint_bounds``, Dix's relation V2^2 t2 = V1^2 t1 + vint^2 (t2 - t1) for vint in the bounds.
+
+    Bounds are rounded to the nearest velocity sample (a stricter rounding would forbid slow but
+    allowed changes on a coarse axis); staying at the same velocity is always allowed.
+    """
+    nv = velocities.size
+    nnode = node_t.size
+    v1 = velocities[None, :]
+    t1 = node_t[:-1, None]
+    t2 = node_t[1:, None]
+    dtn = t2 - t1
+    up = v1 + params.max_increase * dtn
+    down = v1 - params.max_decrease * dtn
+    if vint_bounds is not None:
+        tt = np.maximum(t1, 0.0)
+        t2p = np.maximum(t2, 1e-9)
+        up = np.minimum(up, np.sqrt((tt * v1 * v1 + vint_bounds[1] ** 2 * dtn) / t2p))
+        down = np.maximum(down, np.sqrt((tt * v1 * v1 + vint_bounds[0] ** 2 * dtn) / t2p))
+    grid = np.arange(nv, dtype=np.float64)
+    hi = np.rint(np.interp(up, velocities, grid)).astype(np.int64)
+    lo = np.rint(np.interp(down, velocities, grid)).astype(np.int64)
+    idx = np.arange(nv)[None, :]
+    hi = np.maximum(hi, idx)
+    lo = np.minimum(lo, idx)
+    out_lo = np.zeros((nnode, nv), dtype=np.int64)
+    out_hi = np.zeros((nnode, nv), dtype=np.int64)
+    out_lo[1:], out_hi[1:] = lo, hi
+    return out_lo, out_hi
+
+
+def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params: PickParams,
+                   bounds: tuple[np.ndarray, np.ndarray] | None = None,
+                   vint_bounds: tuple[float, float] | None = None) -> np.ndarray:
+    """The dynamic-programming velocity function on every t0 sample, m/s (float64).
+
+    Parameters
+    ----------
+    panel : ndarray (nv, nt)
+        Coherence panel.
+    velocities : ndarray (nv,)
+        Trial velocities, m/s, ascending.
+    t0 : ndarray (nt,)
+        Times, s.
+    params : PickParams
+        Rates, node interval, smoothness, corridor.
+    bounds : (lo, hi) ndarrays (nt,), optional
+        Velocity bounds at each t0, m/s (default: :func:`velocity_bounds` without a guide).
+    vint_bounds : (vmin, vmax), optional
+        Physical interval-velocity range, m/s, held between successive nodes through Dix.
+    """
+    nv, nt = panel.shape
+    edges = _node_grid(velocities, t0, params)
+    score = _node_scores(np.ascontiguousarray(panel, dtype=np.float32), edges)
     node_t = 0.5 * (t0[edges[:-1]] + t0[edges[1:] - 1])
-    lo_v, hi_v = corridor(node_t, params, velocities[0], velocities[-1])
+    if bounds is None:
+        bounds = velocity_bounds(t0, params, velocities[0], velocities[-1])
+    lo_v = np.interp(node_t, t0, bounds[0])
+    hi_v = np.interp(node_t, t0, bounds[1])
     outside = (velocities[None, :] < lo_v[:, None]) | (velocities[None, :] > hi_v[:, None])
-    # Keep at least the nearest velocity open so that a corridor narrower than the axis still works.
+    # Keep at least the nearest velocity open so that bounds narrower than the axis still work.
     nearest = np.abs(velocities[None, :] - 0.5 * (lo_v + hi_v)[:, None]).argmin(axis=1)
     outside[np.arange(len(node_t)), nearest] = False
     score[outside] = -np.inf
-    dtn = step * dt
-    up = np.searchsorted(velocities, velocities + params.max_increase * dtn, side="right") - 1
-    down = np.searchsorted(velocities, velocities - params.max_decrease * dtn, side="left")
-    idx = np.arange(nv)
-    hi = np.maximum(up, idx).astype(np.int64)
-    lo = np.minimum(down, idx).astype(np.int64)
+    lo, hi = _transitions(velocities, node_t, params, vint_bounds)
     path = _best_path(score, lo, hi, params.smoothness)
     return np.interp(t0, node_t, velocities[path])
+
+
+def peak_sigma(column: np.ndarray, velocities: np.ndarray, r: int, v: float, c: float) -> float:
+    """Velocity uncertainty (one standard deviation, m/s) of a pick from its peak's shape.
+
+    ``SIGMA_SCALE * w * noise / (c - b)``: ``w`` the half width of the peak at half its height
+    above the background ``b`` (the median of the column), ``noise`` the spread of the column
+    about that background (1.4826 times its median absolute deviation). A narrow, tall peak in a
+    quiet column is sure; a broad or low one in a noisy column is not. The result is never below
+    a twentieth of the local velocity sampling.
+    """
+    nv = column.size
+    b = float(np.median(column))
+    noise = 1.4826 * float(np.median(np.abs(column - b)))
+    half = 0.5 * (c + b)
+    grid = np.arange(nv, dtype=np.float64)
+    i = r
+    while i > 0 and column[i - 1] > half:
+        i -= 1
+    left = grid[0] if i == 0 else i - (column[i] - half) / max(column[i] - column[i - 1], 1e-12)
+    i = r
+    while i < nv - 1 and column[i + 1] > half:
+        i += 1
+    right = grid[-1] if i == nv - 1 else i + (column[i] - half) / max(column[i] - column[i + 1], 1e-12)
+    vl, vr = np.interp([left, right], grid, velocities)
+    width = 0.5 * (vr - vl)
+    step = float(velocities[min(r + 1, nv - 1)] - velocities[max(r - 1, 0)]) / 2.0
+    sigma = SIGMA_SCALE * width * max(noise, 1e-6) / max(c - b, 1e-3)
+    return float(max(sigma, 0.05 * step))
 
 
 def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params: PickParams,
                search: int = 4, offsets: np.ndarray | None = None,
                stretch_limit: float | None = None,
-               vint_bounds: tuple[float, float] | None = None) -> PickResult:
+               vint_bounds: tuple[float, float] | None = None,
+               guide: np.ndarray | None = None) -> PickResult:
     """Trace the velocity function and pick the coherence maxima along it.
 
     Parameters
@@ -178,77 +352,238 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         Path constraints and pick thresholds.
     search : int
         Half width, in velocity samples, of the neighbourhood of the path where a pick's peak
-        is looked for.
+        is looked for (never beyond the velocity bounds).
     offsets, stretch_limit : optional
         The gather's offsets (m) and the scan's stretch limit. When given, a maximum is picked
         only where at least ``params.min_live`` traces pass the stretch mute: with a handful of
         traces, noise alone reaches high coherence.
+    vint_bounds : (vmin, vmax), optional
+        Physical interval-velocity range, m/s: held by the path between nodes, and between
+        picks (the weaker of two picks implying a velocity outside it is flagged DIX).
+    guide : ndarray (nt,), optional
+        Guide stacking-velocity function, m/s, with the band of ``params.guide_below`` /
+        ``guide_above`` around it.
 
     Returns
     -------
     PickResult
+        Picks and likely multiples, ascending in t0, with flags.
     """
     nv, nt = panel.shape
-    path = trace_function(panel, velocities, t0, params)
-    centre = np.clip(np.searchsorted(velocities, path), 0, nv - 1)
-    peak_row, along = _near_path_maxima(panel, centre.astype(np.int64), search)
+    bounds = velocity_bounds(t0, params, velocities[0], velocities[-1], guide)
+    reach = None
+    if offsets is not None and stretch_limit is not None:
+        # Live when x <= v t0 sqrt((1+s)^2 - 1): the stretch mute of velspec.scan.moveout.
+        factor = np.sqrt((1.0 + stretch_limit) ** 2 - 1.0)
+        ranked = np.sort(np.abs(offsets))
+        reach = lambda j, v: np.searchsorted(ranked, v * max(t0[j], 0.0) * factor, side="right")  # noqa: E731
+    picks, path = _pick_along_path(panel, velocities, t0, params, bounds, vint_bounds, search, reach)
+    slow = _as_arrays(_slow_events(panel, velocities, t0, path, reach, params))
+    known = _classify_multiples(picks, slow, params)
+    if params.multiple_margin > 0 and known[4].size and (known[4] & MULTIPLE).any():
+        # Second pass with the recognised multiples blanked out of the panel, so that they
+        # neither pull the traced function nor hide the primaries beside them.
+        blank = _blank_events(panel, velocities, t0, known, params)
+        picks, path = _pick_along_path(blank, velocities, t0, params, bounds, vint_bounds, search, reach)
+        again = _as_arrays(_slow_events(blank, velocities, t0, path, reach, params))
+        prior = [a[(known[4] & MULTIPLE) != 0] for a in known]
+        known = _classify_multiples(picks, [np.concatenate([a, b]) for a, b in zip(prior, again)], params)
+    mult = (known[4] & MULTIPLE) != 0
+    picks = [a[~mult] for a in known]
+    if vint_bounds is not None:
+        keep = consistent_picks(picks[0], picks[1], picks[2], vint_bounds)
+        picks[4][~keep] |= DIX
+    picks[4][picks[2] < params.doubtful_coherence] |= LOW_COHERENCE
+    picks[4][picks[3] > params.doubtful_sigma * picks[1]] |= WIDE
+    merged = [np.concatenate([a, b[mult]]) for a, b in zip(picks, known)]
+    order = np.lexsort((merged[1], merged[0]))
+    return PickResult(t0=merged[0][order], velocity=merged[1][order].astype(np.float32),
+                      coherence=merged[2][order].astype(np.float32), sigma=merged[3][order].astype(np.float32),
+                      flags=merged[4][order].astype(np.uint16), path=path.astype(np.float32))
 
+
+def _pick_along_path(panel, velocities, t0, params, bounds, vint_bounds, search, reach):
+    """Trace the function and pick the prominent maxima near it: ([t0, v, c, sigma, flags], path)."""
+    nv, nt = panel.shape
+    path = trace_function(panel, velocities, t0, params, bounds, vint_bounds)
+    grid = np.arange(nv, dtype=np.float64)
+    centre = np.clip(np.rint(np.interp(path, velocities, grid)), 0, nv - 1).astype(np.int64)
+    lo_row = np.ceil(np.interp(bounds[0], velocities, grid) - 1e-6).astype(np.int64)
+    hi_row = np.floor(np.interp(bounds[1], velocities, grid) + 1e-6).astype(np.int64)
+    # the nearest row stays open where the bounds are narrower than the axis sampling
+    lo_row, hi_row = np.minimum(lo_row, centre), np.maximum(hi_row, centre)
+    peak_row, along = _range_maxima(panel, np.maximum(centre - search, lo_row),
+                                    np.minimum(centre + search, hi_row))
     dt = t0[1] - t0[0] if nt > 1 else 1.0
+    entries = []   # (t0, v, coherence, sigma, flags)
+    for j in _event_columns(along, t0, dt, params):
+        if reach is not None and reach(j, path[j]) < params.min_live:
+            continue
+        r = int(peak_row[j])
+        column = panel[:, j]
+        flags = 0
+        true_peak = (r == 0 or column[r - 1] <= column[r]) and (r == nv - 1 or column[r + 1] <= column[r])
+        if not true_peak:
+            # The column still rises beyond the row: at a velocity bound the pick is forced
+            # there; elsewhere it is the flank of something off the path, not an event.
+            if not ((r == lo_row[j] and r > 0 and column[r - 1] > column[r])
+                    or (r == hi_row[j] and r < nv - 1 and column[r + 1] > column[r])):
+                continue
+            v, c = float(velocities[r]), float(column[r])
+            flags |= AT_BOUND
+        else:
+            v, c = _refine(column, velocities, r)
+        entries.append((t0[j], v, c, peak_sigma(column, velocities, r, v, c), flags))
+    return _as_arrays(entries), path
+
+
+def _classify_multiples(picks, slow, params):
+    """Picks and slow events together, time-ordered, with MULTIPLE set on the likely multiples.
+
+    Flat layers make every surface-related multiple a sum of primary legs: events a and b
+    combine into one at t0 = t_a + t_b whose stacking velocity is the RMS over the whole path,
+    V^2 = (t_a V_a^2 + t_b V_b^2) / (t_a + t_b) (Dix, 1955). Walking down in time, a pick that
+    an earlier pair of events (a primary and a primary or recognised multiple) predicts within
+    ``multiple_time_tolerance`` and ``multiple_velocity_tolerance`` is a likely multiple; so
+    are the slow events, which no primary trend explains.
+    """
+    events = [np.concatenate([a, b]) for a, b in zip(picks, slow)]
+    order = np.argsort(events[0], kind="stable")
+    events = [a[order] for a in events]
+    t, v, flags = events[0], events[1], events[4]
+    if params.multiple_margin <= 0:
+        return events
+    b = t * v * v
+    tol_t, tol_v = params.multiple_time_tolerance, params.multiple_velocity_tolerance
+    for i in range(t.size):
+        if flags[i] & MULTIPLE:
+            continue
+        earlier = t < t[i] - tol_t
+        prim = np.flatnonzero(earlier & ((flags & MULTIPLE) == 0))
+        anyk = np.flatnonzero(earlier)
+        if not prim.size:
+            continue
+        tp = t[anyk][:, None] + t[prim][None, :]
+        vp = np.sqrt((b[anyk][:, None] + b[prim][None, :]) / tp)
+        hit = (np.abs(tp - t[i]) <= tol_t) & (np.abs(v[i] - vp) <= tol_v * vp)
+        if hit.any():
+            flags[i] |= MULTIPLE
+    # The coherence of a strong event smears along a diagonal of (t0, v): a later t0 with a
+    # higher velocity (or an earlier with a lower) still fits its far offsets. A weaker maximum
+    # on that diagonal of a recognised multiple is the multiple's tail, not a primary.
+    c = events[2]
+    for i in range(t.size):
+        if flags[i] & MULTIPLE:
+            continue
+        m = (flags & MULTIPLE) != 0
+        dt_m, dv_m = t[i] - t, v[i] - v
+        tail = (m & (c > c[i]) & (np.abs(dt_m) <= params.min_separation) & (dt_m * dv_m >= 0)
+                & (np.abs(dv_m) <= 2 * tol_v * v))
+        if tail.any():
+            flags[i] |= MULTIPLE
+    return events
+
+
+def _blank_events(panel, velocities, t0, events, params):
+    """A copy of the panel with each recognised multiple's peak set to the column's median.
+
+    In each column within ``min_separation`` of the multiple, the peak is cleared from the
+    multiple's velocity down both flanks to the valley next to it (where a neighbouring event
+    begins) or to within 5 % of the background."""
+    out = np.array(panel, dtype=np.float32, copy=True)
+    nv, nt = out.shape
+    dt = t0[1] - t0[0] if nt > 1 else 1.0
+    half_t = max(int(round(params.min_separation / dt)), 1)
+    grid = np.arange(nv, dtype=np.float64)
+    for tm, vm, flag in zip(events[0], events[1], events[4]):
+        if not flag & MULTIPLE:
+            continue
+        j0 = int(round((tm - t0[0]) / dt))
+        r0 = int(np.clip(np.rint(np.interp(vm, velocities, grid)), 0, nv - 1))
+        for j in range(max(j0 - half_t, 0), min(j0 + half_t + 1, nt)):
+            col = out[:, j]
+            floor = float(np.median(col))
+            top = col[r0]
+            if top <= floor:
+                continue
+            # down both flanks to the valley or nearly to the background, whichever comes first
+            low = floor + 0.05 * (top - floor)
+            lo = r0
+            while lo > 0 and low < col[lo - 1] <= col[lo]:
+                lo -= 1
+            hi = r0
+            while hi < nv - 1 and low < col[hi + 1] <= col[hi]:
+                hi += 1
+            col[lo:hi + 1] = floor
+    return out
+
+
+def _event_columns(along: np.ndarray, t0: np.ndarray, dt: float, params: PickParams):
+    """Columns where a series of coherence maxima has an event: prominent peaks, each moved to
+    the centre of its plateau, ascending and unique."""
     sep = max(int(round(params.min_separation / dt)), 1)
     peaks, _ = find_peaks(along, height=params.min_coherence, prominence=params.min_prominence, distance=sep)
     peaks = peaks[t0[peaks] >= params.tmin]
-    times, vels, cohs = [], [], []
-    if peaks.size:
-        # Semblance of a zero-phase wavelet is a plateau about the event: its centre (where the
-        # plateau falls to half its prominence on either side) is steadier than its noisy maximum.
-        _, _, left, right = peak_widths(along, peaks, rel_height=0.5)
-        centres = np.clip(np.rint(0.5 * (left + right)).astype(np.int64), 0, nt - 1)
-        if offsets is not None and stretch_limit is not None:
-            # Live when x <= v t0 sqrt((1+s)^2 - 1): the stretch mute of velspec.scan.moveout.
-            reach = path * np.clip(t0, 0, None) * np.sqrt((1.0 + stretch_limit) ** 2 - 1.0)
-            live = np.searchsorted(np.sort(np.abs(offsets)), reach, side="right")
-            centres = centres[live[centres] >= params.min_live]
-        for j in np.unique(centres):
-            r = int(peak_row[j])
-            column = panel[:, j]
-            # Not a maximum along velocity too: the flank of something off the path, not an event.
-            if 0 < r < nv - 1 and not (column[r - 1] <= column[r] >= column[r + 1]):
-                continue
-            v, c = _refine(column, velocities, r)
-            times.append(t0[j])
-            vels.append(v)
-            cohs.append(c)
-    times, vels, cohs = (np.asarray(a, dtype=np.float64) for a in (times, vels, cohs))
-    if vint_bounds is not None and times.size > 1:
-        keep = consistent_picks(times, vels, cohs, vint_bounds, params.consistency_ratio)
-        times, vels, cohs = times[keep], vels[keep], cohs[keep]
-    return PickResult(t0=times, velocity=vels.astype(np.float32), coherence=cohs.astype(np.float32),
-                      path=path.astype(np.float32))
+    if not peaks.size:
+        return []
+    # Semblance of a zero-phase wavelet is a plateau about the event: its centre (where the
+    # plateau falls to half its prominence on either side) is steadier than its noisy maximum.
+    _, _, left, right = peak_widths(along, peaks, rel_height=0.5)
+    centres = np.clip(np.rint(0.5 * (left + right)).astype(np.int64), 0, t0.size - 1)
+    return [int(j) for j in np.unique(centres)]
 
 
-def consistent_picks(t0: np.ndarray, v: np.ndarray, coherence: np.ndarray, vint_bounds: tuple[float, float],
-                     ratio: float) -> np.ndarray:
-    """Mask of picks kept after dropping weak picks that make Dix's interval velocity impossible.
+def _slow_events(panel, velocities, t0, path, reach, params):
+    """Coherence events slower than ``(1 - multiple_margin)`` times the traced function."""
+    if params.multiple_margin <= 0:
+        return []
+    nv = velocities.size
+    grid = np.arange(nv, dtype=np.float64)
+    top = np.floor(np.interp(path * (1.0 - params.multiple_margin), velocities, grid, left=-1.0)).astype(np.int64)
+    rows, values = _range_maxima(panel, np.zeros_like(top), top)
+    out = []
+    for j in _event_columns(values, t0, t0[1] - t0[0] if t0.size > 1 else 1.0, params):
+        r = int(rows[j])
+        if r < 0 or (reach is not None and reach(j, velocities[r]) < params.min_live):
+            continue
+        column = panel[:, j]
+        if not (0 < r < nv - 1 and column[r - 1] <= column[r] and column[r + 1] <= column[r]):
+            continue   # the flank of the primary's peak or the axis edge, not an event of its own
+        v, c = _refine(column, velocities, r)
+        out.append((t0[j], v, c, peak_sigma(column, velocities, r, v, c), MULTIPLE))
+    return out
 
-    Dix (1955): v_int^2 = (t2 V2^2 - t1 V1^2) / (t2 - t1) between neighbouring picks. While some
-    interval falls outside ``vint_bounds`` and the weaker of its two picks has less than
-    ``ratio`` times the stronger one's coherence, that weaker pick is dropped.
+
+def _as_arrays(entries):
+    if not entries:
+        return [np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0), np.zeros(0, dtype=np.uint16)]
+    cols = list(zip(*entries))
+    return [np.asarray(cols[k], dtype=np.float64) for k in range(4)] + [np.asarray(cols[4], dtype=np.uint16)]
+
+
+def consistent_picks(t0: np.ndarray, v: np.ndarray, coherence: np.ndarray,
+                     vint_bounds: tuple[float, float]) -> np.ndarray:
+    """Mask of picks kept so that no two neighbours imply an interval velocity outside the range.
+
+    Dix (1955): v_int^2 = (t2 V2^2 - t1 V1^2) / (t2 - t1) between neighbouring picks. While some interval falls outside ``vint_bounds``, the
+    weakest pick bordering an offending interval is dropped. Dropping a pick merges two
+    intervals into one whose squared velocity is their time-weighted mean, so the kept picks
+    stay consistent whatever is dropped later.
     """
     lo2, hi2 = vint_bounds[0] ** 2, vint_bounds[1] ** 2
     keep = np.ones(t0.size, dtype=bool)
     while True:
         idx = np.flatnonzero(keep)
-        b = t0[idx] * v[idx] ** 2
+        if idx.size < 2:
+            return keep
+        b = t0[idx] * v[idx].astype(np.float64) ** 2
         u = np.diff(b) / np.diff(t0[idx])
         bad = np.flatnonzero((u < lo2) | (u > hi2))
-        weak = np.where(coherence[idx[bad]] < coherence[idx[bad + 1]], idx[bad], idx[bad + 1])
-        strong = np.where(weak == idx[bad], idx[bad + 1], idx[bad])
-        droppable = weak[coherence[weak] < ratio * coherence[strong]]
-        # Drop the weakest offender first: removing it may make its neighbours consistent.
-        drop = droppable[np.argmin(coherence[droppable])] if droppable.size else None
-        if drop is None:
+        if not bad.size:
             return keep
-        keep[drop] = False
+        # Drop the weakest offender first: removing it may make its neighbours consistent.
+        candidates = np.unique(np.concatenate([idx[bad], idx[bad + 1]]))
+        keep[candidates[np.argmin(coherence[candidates])]] = False
 
 
 def _refine(column: np.ndarray, velocities: np.ndarray, r: int) -> tuple[float, float]:
