@@ -9,8 +9,10 @@ from velspec.pipeline import CmpOutcome, line_pass
 
 
 def outcome(cmp, t0, v, path):
+    n = len(t0)
     picks = PickResult(t0=np.asarray(t0, float), velocity=np.asarray(v, np.float32),
-                       coherence=np.full(len(t0), 0.8, np.float32), path=path.astype(np.float32))
+                       coherence=np.full(n, 0.8, np.float32), sigma=np.full(n, 10.0, np.float32),
+                       flags=np.zeros(n, np.uint16), path=path.astype(np.float32))
     return CmpOutcome(position=cmp, cmp=cmp, live=24, dropped_nan=0, dropped_dead=0, picks=picks)
 
 

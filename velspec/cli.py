@@ -56,7 +56,38 @@ def _build_parser() -> argparse.ArgumentParser:
     run.add_argument("--vmin", type=float, metavar="M/S", help="lowest trial stacking velocity (default 1400)")
     run.add_argument("--vmax", type=float, metavar="M/S", help="highest trial stacking velocity (default 6000)")
     run.add_argument("--nvel", type=int, metavar="N", help="number of trial velocities (default 120)")
+    run.add_argument("--guide", metavar="regional|FILE.csv",
+                     help="guide function: the built-in regional trend, or a CSV (t0_s,vrms_m_s [,cmp])")
+    run.add_argument("--picks", metavar="EDITS.csv", help="a person's picks (cmp,t0_s,vrms_m_s) for chosen CMPs")
+    run.add_argument("--edit-mode", choices=("replace", "guide"),
+                     help="the person's picks replace the automatic ones there, or guide them (default replace)")
     _work_options(run, force_help="overwrite an existing result")
+
+    rev = sub.add_parser("revise", help="rerun the line pass from a result, with a person's picks",
+                         description="Reruns lateral regularisation, constrained Dix and depth conversion "
+                                     "from a result file, without rescanning: with --picks, a person's picks "
+                                     "replace or guide the automatic ones at the CMPs they name.",
+                         epilog=CAUTION)
+    rev.add_argument("result", metavar="RESULT.h5", help="result of velspec run (or of an earlier revise)")
+    rev.add_argument("--out", required=True, metavar="NEW.h5", help="revised result to write")
+    rev.add_argument("--picks", metavar="EDITS.csv", help="picks to apply (cmp,t0_s,vrms_m_s)")
+    rev.add_argument("--edit-mode", choices=("replace", "guide"), default="replace",
+                     help="replace the automatic picks at those CMPs, or keep only those near the "
+                          "person's function (default replace)")
+    rev.add_argument("--config", metavar="FILE.toml",
+                     help="changed [pick] / [interval] parameters (the scan's stay as they were)")
+    rev.add_argument("--force", action="store_true", help="overwrite an existing output")
+    rev.add_argument("--quiet", action="store_true", help="no summary line")
+    rev.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+
+    pk = sub.add_parser("picks", help="write the picks of a result as CSV, for a person to edit",
+                        description="Writes every pick of a result (with its uncertainty, coherence, flags "
+                                    "and whether it was used) as CSV; give the edited file back to "
+                                    "velspec revise --picks or velspec run --picks.")
+    pk.add_argument("result", metavar="RESULT.h5")
+    pk.add_argument("--out", required=True, metavar="PICKS.csv")
+    pk.add_argument("--force", action="store_true", help="overwrite an existing file")
+    pk.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
 
     demo = sub.add_parser("demo", help="generate a synthetic line and analyse it",
                           description="Makes a synthetic 2D line (an invented shelf-basin scenario), runs "
@@ -80,10 +111,12 @@ def main(argv: list[str] | None = None) -> int:
     try:
         args = _build_parser().parse_args(argv)
         if args.command is None:
-            raise UsageError("a command is needed: run, demo or inspect (see velspec --help)")
+            raise UsageError("a command is needed: run, demo, inspect, revise or picks (see velspec --help)")
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", UserWarning)
-            status = {"run": _cmd_run, "demo": _cmd_demo, "inspect": _cmd_inspect}[args.command](args)
+            commands = {"run": _cmd_run, "demo": _cmd_demo, "inspect": _cmd_inspect, "revise": _cmd_revise,
+                        "picks": _cmd_picks}
+            status = commands[args.command](args)
         for w in caught:
             if issubclass(w.category, UserWarning):
                 print(f"velspec: warning: {w.message}", file=sys.stderr)
@@ -109,7 +142,9 @@ def _run_params(args):
 
     params = load_toml(args.config) if getattr(args, "config", None) else RunParams()
     params = params.with_overrides(scan__vmin=getattr(args, "vmin", None), scan__vmax=getattr(args, "vmax", None),
-                                   scan__nvel=getattr(args, "nvel", None), threads=getattr(args, "threads", None))
+                                   scan__nvel=getattr(args, "nvel", None), threads=getattr(args, "threads", None),
+                                   pick__guide=getattr(args, "guide", None), pick__edits=getattr(args, "picks", None),
+                                   pick__edit_mode=getattr(args, "edit_mode", None))
     _check_threads(params.threads)
     return params.validate()
 
@@ -149,6 +184,50 @@ def _cmd_run(args) -> int:
     write_result(out, result, force=args.force)
     if not args.quiet:
         print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {len(result.picks['t0'])} picks)", file=sys.stderr)
+    return EXIT_OK
+
+
+def _cmd_revise(args) -> int:
+    import dataclasses
+
+    from .io.picks_csv import read_functions
+    from .io.result import read_result, write_result
+    from .params import RunParams, load_toml
+    from .pipeline import revise_result
+
+    out = Path(args.out)
+    _check_output_file(out, args.force)
+    if Path(args.result).resolve() == out.resolve():
+        raise UsageError("--out must differ from the result being revised (inputs are never modified)")
+    stored = read_result(args.result)
+    try:
+        params = RunParams.from_dict(stored["attrs"]["parameters"])
+    except (KeyError, TypeError, ParameterError) as exc:
+        raise UsageError(f"{args.result}: its run parameters cannot be read by this velspec ({exc}); "
+                         "rerun velspec run") from None
+    if args.config:
+        changed = load_toml(args.config)
+        params = dataclasses.replace(params, pick=changed.pick, interval=changed.interval)
+    edits = read_functions(args.picks, need_cmp=True) if args.picks else None
+    params = params.with_overrides(pick__edits=args.picks or "", pick__edit_mode=args.edit_mode).validate()
+    result = revise_result(stored, params, edits=edits, source=str(args.result))
+    write_result(out, result, force=args.force)
+    if not args.quiet:
+        used = int(result.picks["used"].sum())
+        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {used} picks used, "
+              f"{result.attrs['edited_cmps']} CMP(s) edited)", file=sys.stderr)
+    return EXIT_OK
+
+
+def _cmd_picks(args) -> int:
+    from .io.picks_csv import write_picks_csv
+    from .io.result import read_result
+
+    out = Path(args.out)
+    _check_output_file(out, args.force)
+    stored = read_result(args.result)
+    picks = {k.split("/", 1)[1]: v for k, v in stored.items() if k.startswith("picks/")}
+    write_picks_csv(out, picks, force=args.force)
     return EXIT_OK
 
 

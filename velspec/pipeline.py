@@ -23,7 +23,9 @@ from .errors import InputError
 from .interval import depth_fields, fields_from_picks
 from .io.segy import Gather, SegyLine, open_line
 from .params import RunParams
-from .pick import PickResult, pick_panel
+from .io.picks_csv import function_on_axis, read_functions
+from .pick import (DIX, EDITED, EXCLUDED, LOW_COHERENCE, MULTIPLE, OUTLIER, OUTSIDE_GUIDE, REPLACED, PickResult,
+                   pick_panel, regional_trend)
 from .scan import scan_gather, velocity_axis
 
 MIN_LIVE = 2  # a CMP needs two live traces for any coherence
@@ -60,6 +62,7 @@ class LineResult:
     depth: dict[str, np.ndarray]
     attrs: dict = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    vint_sigma: np.ndarray | None = None
 
 
 def eta_axis(scan) -> np.ndarray | None:
@@ -76,82 +79,304 @@ def spectra_positions(ncmp: int, keep: int) -> np.ndarray:
     return np.unique(np.linspace(0, ncmp - 1, min(keep, ncmp)).round().astype(np.int64))
 
 
-def analyse_gather(gather: Gather, times: np.ndarray, dt: float, params: RunParams,
-                   velocities: np.ndarray, keep_panel: bool = False) -> CmpOutcome:
-    """Scan and pick one gather (the unit of work of the streaming pass)."""
+GuideFor = Callable[[int], "np.ndarray | None"]
+
+
+def guide_source(params: RunParams, t0: np.ndarray) -> GuideFor:
+    """The guide function of each CMP (m/s on ``t0``, or None), from ``params.pick``.
+
+    The regional trend or a guide CSV serves every CMP; in ``edit_mode = "guide"`` the functions
+    of a person's pick file take over at the CMPs it names.
+    """
+    pp = params.pick
+    base: GuideFor = lambda cmp: None  # noqa: E731
+    if pp.guide == "regional":
+        trend = regional_trend(t0, pp.regional_v0, pp.regional_gradient)
+        base = lambda cmp: trend  # noqa: E731
+    elif pp.guide:
+        functions = read_functions(pp.guide)
+        base = lambda cmp: function_on_axis(functions, cmp, t0)  # noqa: E731
+    if pp.edits and pp.edit_mode == "guide":
+        edits = read_functions(pp.edits, need_cmp=True)
+        return lambda cmp: np.interp(t0, *edits[cmp]) if cmp in edits else base(cmp)
+    return base
+
+
+@dataclass
+class _Scanned:
+    """A scanned CMP waiting for its neighbours' panels before it is picked."""
+
+    position: int
+    outcome: CmpOutcome
+    gather: Gather
+    panel: np.ndarray | None = None
+    best_eta: np.ndarray | None = None
+
+
+def scan_one(gather: Gather, times: np.ndarray, dt: float, params: RunParams,
+             velocities: np.ndarray) -> tuple[CmpOutcome, np.ndarray | None, np.ndarray | None]:
+    """Scan one gather: its outcome record, coherence panel (nv, nt) and, for a nonhyperbolic
+    scan, the index of the best eta at each (v, t0) (the panel then holds the best over eta)."""
     live = gather.data.shape[0]
     outcome = CmpOutcome(position=-1, cmp=gather.cmp, live=live, dropped_nan=gather.dropped_nan,
                          dropped_dead=gather.dropped_dead, picks=None)
     if live < MIN_LIVE:
-        return outcome
+        return outcome, None, None
     sp = params.scan
     etas = eta_axis(sp)
     panel = scan_gather(gather.data, gather.offsets, dt, float(times[0]), velocities, measure=sp.measure,
                         window=sp.window, stretch_limit=sp.stretch_limit, etas=etas)
-    if etas is not None:
-        # Pick on the best eta at each (v, t0); read each pick's eta back from where it peaked.
-        best = panel.argmax(axis=0)
-        panel = panel.max(axis=0)
+    if etas is None:
+        return outcome, panel, None
+    return outcome, panel.max(axis=0), panel.argmax(axis=0)
+
+
+def pick_one(outcome: CmpOutcome, gather: Gather, panel: np.ndarray, best_eta: np.ndarray | None,
+             times: np.ndarray, params: RunParams, velocities: np.ndarray, guide: np.ndarray | None) -> None:
+    """Pick a (laterally smoothed) panel into ``outcome.picks``; eta read back at each pick."""
+    sp = params.scan
     outcome.picks = pick_panel(panel, velocities, times, params.pick, offsets=gather.offsets,
                                stretch_limit=sp.stretch_limit,
-                               vint_bounds=(params.interval.vint_min, params.interval.vint_max))
-    if etas is not None:
+                               vint_bounds=(params.interval.vint_min, params.interval.vint_max), guide=guide)
+    if best_eta is not None:
+        etas = eta_axis(sp)
         rows = np.abs(velocities[None, :] - outcome.picks.velocity[:, None]).argmin(axis=1)
         cols = np.searchsorted(times, outcome.picks.t0 - 1e-9)
-        outcome.pick_eta = etas[best[rows, cols]].astype(np.float32)
-    if keep_panel:
-        outcome.panel = panel
-    return outcome
+        outcome.pick_eta = etas[best_eta[rows, cols]].astype(np.float32)
+
+
+def smoothed_panel(items: list[_Scanned], centre: int, half: int) -> np.ndarray:
+    """Triangle-weighted mean of the panels within +-half positions of ``items[centre]``.
+
+    Weights ``half + 1 - |d|`` for a neighbour d positions away; CMPs without a panel (too few
+    live traces) and the ends of the line simply drop out. Summed in a fixed order, so the
+    result does not depend on how the line was cut into blocks.
+    """
+    me = items[centre]
+    if half == 0:
+        return me.panel
+    acc = np.zeros_like(me.panel)
+    total = 0.0
+    for other in items:
+        d = abs(other.position - me.position)
+        if other.panel is None or d > half:
+            continue
+        w = float(half + 1 - d)
+        acc += np.float32(w) * other.panel
+        total += w
+    return acc / np.float32(total)
 
 
 def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None = None,
-                progress: Callable[[int], None] | None = None) -> Iterator[CmpOutcome]:
-    """Yield one :class:`CmpOutcome` per CMP, reading ``params.block`` gathers at a time."""
+                progress: Callable[[int], None] | None = None,
+                guide_for: GuideFor | None = None) -> Iterator[CmpOutcome]:
+    """Yield one :class:`CmpOutcome` per CMP, reading ``params.block`` gathers at a time.
+
+    A CMP is picked once the panels of its neighbours within ``params.pick.smooth_cmps`` are
+    scanned, so at most one block plus that many panels on each side are held at a time.
+    """
     positions = np.arange(line.ncmp) if positions is None else np.asarray(positions)
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
     keep = set(spectra_positions(line.ncmp, params.keep_spectra).tolist())
     times = line.times
+    half = params.pick.smooth_cmps
+    guide_for = guide_for or (lambda cmp: None)
+    pending: list[_Scanned] = []   # scanned, in position order; the first unpicked at index `nxt`
+    nxt = 0
+
+    def ready(upto: float):
+        nonlocal nxt, pending
+        while nxt < len(pending) and pending[nxt].position + half <= upto:
+            item = pending[nxt]
+            if item.panel is not None:
+                panel = smoothed_panel(pending, nxt, half)
+                pick_one(item.outcome, item.gather, panel, item.best_eta, times, params, velocities,
+                         guide_for(item.outcome.cmp))
+                if int(item.position) in keep:
+                    item.outcome.panel = panel
+            nxt += 1
+            yield item.outcome
+        # forget what no later CMP needs: panels more than `half` positions behind the next one
+        if nxt < len(pending):
+            first_needed = pending[nxt].position - half
+        else:
+            first_needed = np.inf
+        drop = 0
+        while drop < nxt and pending[drop].position < first_needed:
+            drop += 1
+        pending = pending[drop:]
+        nxt -= drop
+
     for start in range(0, len(positions), params.block):
         block = positions[start: start + params.block]
         gathers = [line.read_gather(int(k)) for k in block]
         for k, gather in zip(block, gathers):
-            outcome = analyse_gather(gather, times, line.dt, params, velocities, keep_panel=int(k) in keep)
+            outcome, panel, best = scan_one(gather, times, line.dt, params, velocities)
             outcome.position = int(k)
-            yield outcome
+            pending.append(_Scanned(int(k), outcome, gather, panel, best))
+        yield from ready(float(block[-1]))
         if progress is not None:
             progress(len(block))
+    yield from ready(np.inf)
 
 
-def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams) -> dict[str, np.ndarray]:
-    """Fields on every (CMP, t0) from the picks: stacking velocity, constrained Dix, depth."""
+def analyse_gather(gather: Gather, times: np.ndarray, dt: float, params: RunParams,
+                   velocities: np.ndarray, keep_panel: bool = False,
+                   guide: np.ndarray | None = None) -> CmpOutcome:
+    """Scan and pick one gather on its own (no lateral smoothing)."""
+    outcome, panel, best = scan_one(gather, times, dt, params, velocities)
+    if panel is not None:
+        pick_one(outcome, gather, panel, best, times, params, velocities, guide)
+        if keep_panel:
+            outcome.panel = panel
+    return outcome
+
+
+EDITED_SIGMA = 0.01  # uncertainty given to a person's pick, as a fraction of its velocity
+
+
+def apply_edits(records: list[CmpOutcome], edits: dict, mode: str, params: RunParams) -> int:
+    """Put a person's picks into the records, in place; returns the number of CMPs changed.
+
+    ``replace``: at each CMP in ``edits`` the automatic picks are flagged REPLACED and the
+    person's picks added (flag EDITED). ``guide``: the automatic picks outside the band around
+    the person's function are flagged OUTSIDE_GUIDE; if none is left, the person's picks are
+    added. Edits for CMPs the line does not have are an error.
+    """
+    by_cmp = {o.cmp: o for o in records if o.picks is not None}
+    unknown = sorted(set(edits) - set(by_cmp))
+    if unknown:
+        raise InputError(f"edited picks name CMP(s) not in the result: {', '.join(map(str, unknown[:5]))}"
+                         f"{' ...' if len(unknown) > 5 else ''}")
+    pp = params.pick
+    for cmp, (t, v) in edits.items():
+        p = by_cmp[cmp].picks
+        p.flags = p.flags & np.uint16(~(REPLACED | OUTSIDE_GUIDE) & 0xFFFF)
+        add = True
+        if mode == "guide":
+            g = np.interp(p.t0, t, v)
+            outside = (p.velocity < g * (1 - pp.guide_below)) | (p.velocity > g * (1 + pp.guide_above))
+            p.flags[outside & p.used] |= OUTSIDE_GUIDE
+            add = not p.used.any()
+        else:
+            p.flags[p.used] |= REPLACED
+        if add:
+            n = t.size
+            merged = PickResult(
+                t0=np.concatenate([p.t0, t]), velocity=np.concatenate([p.velocity, v.astype(np.float32)]),
+                coherence=np.concatenate([p.coherence, np.full(n, np.nan, np.float32)]),
+                sigma=np.concatenate([p.sigma, (EDITED_SIGMA * v).astype(np.float32)]),
+                flags=np.concatenate([p.flags, np.full(n, EDITED, np.uint16)]), path=p.path)
+            order = np.lexsort((merged.velocity, merged.t0))
+            by_cmp[cmp].picks = merged.subset(order)
+    return len(edits)
+
+
+def lateral_outliers(t0: np.ndarray, records: list[CmpOutcome], vrms: np.ndarray, params: RunParams) -> int:
+    """Flag picks far from the running median of the stacking-velocity field along the line.
+
+    The median over +-``lateral_cmps`` CMPs at each t0 follows a step in velocity (a fault, a
+    change of facies) where a mean would smear it; a pick is an outlier only where it differs
+    from it by more than ``outlier_tolerance`` and by more than ``outlier_sigmas`` of its own
+    uncertainty. A person's picks are never rejected. Returns the number of picks flagged.
+    """
+    from scipy.ndimage import median_filter
+
+    pp = params.pick
+    if pp.lateral_cmps == 0 or len(records) < 3:
+        return 0
+    reference = median_filter(vrms, size=(2 * pp.lateral_cmps + 1, 1), mode="nearest")
+    flagged = 0
+    for row, o in enumerate(records):
+        p = o.picks
+        candidate = p.used & ((p.flags & EDITED) == 0)
+        if not candidate.any():
+            continue
+        ref = np.interp(p.t0, t0, reference[row])
+        dev = np.abs(p.velocity - ref)
+        bad = candidate & (dev > pp.outlier_tolerance * ref) & (dev > pp.outlier_sigmas * p.sigma)
+        p.flags[bad] |= OUTLIER
+        flagged += int(bad.sum())
+    return flagged
+
+
+def _cmp_fields(t0: np.ndarray, p: PickResult, params: RunParams):
+    """Fields of one CMP from its used picks; the traced function where it has none."""
+    use = p.used & (p.t0 > 0)   # Dix counts time from zero: a pick at or above it carries no interval
+    pick_t, pick_v, pick_s = p.t0[use], p.velocity[use], p.sigma[use]
+    fallback = pick_t.size == 0
+    if fallback:
+        # No coherence maximum passed the thresholds: fall back on the traced function.
+        start = max(params.pick.tmin, float(t0[t0 > 0][0]))
+        pick_t = np.append(np.arange(start, t0[-1], params.pick.min_separation), t0[-1])
+        pick_v = np.interp(pick_t, t0, p.path).astype(np.float32)
+        pick_s = (EDITED_SIGMA * 5 * pick_v).astype(np.float32)  # a guess of 5 %: say it is poor
+    f = fields_from_picks(t0, pick_t, pick_v, params.interval, pick_sigma=pick_s)
+    return f, use, fallback
+
+
+def cmp_quality(p: PickResult, fallback: bool, forced_count: int, params: RunParams) -> int:
+    """0 good, 1 fair, 2 poor (see the README's table of the rule)."""
+    use = p.used
+    if fallback or use.sum() < 2:
+        return 2
+    rel = float(np.median(p.sigma[use] / p.velocity[use]))
+    if rel > params.pick.doubtful_sigma:
+        return 2
+    candidates = (p.flags & MULTIPLE) == 0
+    rejected = candidates & ((p.flags & (OUTLIER | DIX)) != 0)
+    low = use & ((p.flags & LOW_COHERENCE) != 0)
+    if (forced_count > 0 or rejected.sum() > 0.25 * max(candidates.sum(), 1)
+            or rel > 0.5 * params.pick.doubtful_sigma or low.sum() > 0.5 * use.sum()):
+        return 1
+    return 0
+
+
+def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams,
+              edits: dict | None = None) -> dict[str, np.ndarray]:
+    """Fields on every (CMP, t0) from the picks: edits, lateral outlier rejection, constrained
+    Dix with uncertainties, depth. Updates the picks' flags in place."""
     analysed = [o for o in outcomes if o.picks is not None]
+    for o in analysed:   # the line pass owns these flags: a rerun starts afresh
+        o.picks.flags = o.picks.flags & np.uint16(~OUTLIER & 0xFFFF)
+    changed = apply_edits(analysed, edits, params.pick.edit_mode, params) if edits else 0
     nt = t0.size
-    vrms = np.empty((len(analysed), nt), dtype=np.float32)
+    ncmp = len(analysed)
+
+    def all_fields():
+        return [_cmp_fields(t0, o.picks, params) for o in analysed]
+
+    per_cmp = all_fields()
+    if lateral_outliers(t0, analysed, np.stack([f.vrms for f, _, _ in per_cmp]) if ncmp else
+                        np.zeros((0, nt), np.float32), params):
+        per_cmp = all_fields()
+    vrms = np.empty((ncmp, nt), dtype=np.float32)
     vint = np.empty_like(vrms)
     vint_raw = np.empty_like(vrms)
-    forced = np.zeros((len(analysed), nt), dtype=np.uint8)
-    forced_count = np.zeros(len(analysed), dtype=np.int32)
-    no_picks = np.zeros(len(analysed), dtype=np.uint8)
-    eta = np.zeros((len(analysed), nt), dtype=np.float32) if params.scan.moveout == "nonhyperbolic" else None
-    for row, o in enumerate(analysed):
-        p = o.picks
-        live = p.t0 > 0   # Dix counts time from zero: a pick at or above it carries no interval
-        pick_t, pick_v = p.t0[live], p.velocity[live]
-        if pick_t.size == 0:
-            # No coherence maximum passed the thresholds: fall back on the traced function.
-            no_picks[row] = 1
-            start = max(params.pick.tmin, float(t0[t0 > 0][0]))
-            nodes = np.append(np.arange(start, t0[-1], params.pick.min_separation), t0[-1])
-            pick_t, pick_v = nodes, np.interp(nodes, t0, p.path).astype(np.float32)
-        f = fields_from_picks(t0, pick_t, pick_v, params.interval)
-        vrms[row], vint[row], vint_raw[row] = f.vrms, f.vint, f.vint_raw
+    vint_sigma = np.empty_like(vrms)
+    forced = np.zeros((ncmp, nt), dtype=np.uint8)
+    forced_count = np.zeros(ncmp, dtype=np.int32)
+    no_picks = np.zeros(ncmp, dtype=np.uint8)
+    quality = np.zeros(ncmp, dtype=np.uint8)
+    pick_vint_sigma = []
+    eta = np.zeros((ncmp, nt), dtype=np.float32) if params.scan.moveout == "nonhyperbolic" else None
+    for row, (o, (f, use, fallback)) in enumerate(zip(analysed, per_cmp)):
+        vrms[row], vint[row], vint_raw[row], vint_sigma[row] = f.vrms, f.vint, f.vint_raw, f.vint_sigma
         forced[row] = f.forced
         forced_count[row] = f.forced_count
-        if eta is not None and o.pick_eta is not None and o.pick_eta.size:
-            eta[row] = np.interp(t0, o.picks.t0, o.pick_eta)   # held constant beyond the end picks
+        no_picks[row] = fallback
+        quality[row] = cmp_quality(o.picks, fallback, f.forced_count, params)
+        ps = np.full(o.picks.t0.size, np.nan, np.float32)
+        if not fallback:
+            ps[use] = f.pick_vint_sigma
+        pick_vint_sigma.append(ps)
+        if eta is not None and o.pick_eta is not None and use.any():
+            eta[row] = np.interp(t0, o.picks.t0[use], o.pick_eta[use])   # held beyond the end picks
     z, t_of_z, vint_z = depth_fields(t0, vint, params.interval.dz)
-    return {"vrms": vrms, "vint": vint, "vint_raw": vint_raw, "forced": forced, "forced_count": forced_count,
-            "no_picks": no_picks, "eta": eta, "z": z, "depth_t0": t_of_z, "depth_vint": vint_z}
+    return {"vrms": vrms, "vint": vint, "vint_raw": vint_raw, "vint_sigma": vint_sigma, "forced": forced,
+            "forced_count": forced_count, "no_picks": no_picks, "quality": quality, "eta": eta,
+            "pick_vint_sigma": pick_vint_sigma, "edited_cmps": changed,
+            "z": z, "depth_t0": t_of_z, "depth_vint": vint_z}
 
 
 def run_line(path: str | Path, params: RunParams, progress_factory: Callable | None = None) -> LineResult:
@@ -168,10 +393,12 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
     """
     params.validate()
     _set_threads(params.threads)
+    edits = read_functions(params.pick.edits, need_cmp=True) if params.pick.edits else None
     with open_line(path, params.read) as line:
+        guide_for = guide_source(params, line.times)
         update, close = progress_factory(line.ncmp) if progress_factory else (None, None)
         try:
-            outcomes = list(stream_pass(line, params, progress=update))
+            outcomes = list(stream_pass(line, params, progress=update, guide_for=guide_for))
         finally:
             if close is not None:
                 close()
@@ -189,30 +416,10 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
                             f"(first: CMP {skipped[0].cmp})")
     if nan_traces:
         warnings_out.append(f"{nan_traces} trace(s) with NaN or infinite samples were left out")
-    fields = line_pass(t0, outcomes, params)
+    # In guide mode the edits already steered the picking; the line pass then only replaces.
+    line_edits = edits if params.pick.edit_mode == "replace" else None
+    fields = line_pass(t0, outcomes, params, edits=line_edits)
     rows = np.array([o.position for o in analysed], dtype=np.int64)
-
-    pick_cmp = np.concatenate([np.full(o.picks.t0.size, o.cmp, dtype=np.int64) for o in analysed])
-    picks = {
-        "cmp": pick_cmp,
-        "t0": np.concatenate([o.picks.t0 for o in analysed]).astype(np.float64),
-        "vrms": np.concatenate([o.picks.velocity for o in analysed]).astype(np.float32),
-        "coherence": np.concatenate([o.picks.coherence for o in analysed]).astype(np.float32),
-    }
-    qc = {
-        "live_traces": np.array([o.live for o in analysed], dtype=np.int32),
-        "nan_traces": np.array([o.dropped_nan for o in analysed], dtype=np.int32),
-        "dead_traces": np.array([o.dropped_dead for o in analysed], dtype=np.int32),
-        "no_picks": fields["no_picks"],
-        "forced_count": fields["forced_count"],
-        "vint_forced": fields["forced"],
-        "vint_raw": fields["vint_raw"],
-        "path": np.stack([o.picks.path for o in analysed]).astype(np.float32),
-        "skipped_cmp": np.array([o.cmp for o in skipped], dtype=np.int64),
-        "skipped_nan_traces": np.array([o.dropped_nan for o in skipped], dtype=np.int32),
-    }
-    if fields["eta"] is not None:
-        picks["eta"] = np.concatenate([o.pick_eta for o in analysed]).astype(np.float32)
     kept = [o for o in analysed if o.panel is not None]
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
     spectra = {
@@ -223,16 +430,102 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
     }
     attrs = {
         "velspec_version": __version__,
-        "created": _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat(),
+        "created": _now(),
         "parameters": params.to_json(),
         "input": identity,
         "skipped_cmps": len(skipped),
         "nan_traces": nan_traces,
     }
-    return LineResult(cmp=ix.cmp[rows], cmp_x=ix.cmp_x[rows], cmp_y=ix.cmp_y[rows], t0=t0,
-                      vrms=fields["vrms"], vint=fields["vint"], eta=fields["eta"], picks=picks, qc=qc, spectra=spectra,
+    skipped_qc = {"skipped_cmp": np.array([o.cmp for o in skipped], dtype=np.int64),
+                  "skipped_nan_traces": np.array([o.dropped_nan for o in skipped], dtype=np.int32)}
+    return _assemble(t0, analysed, fields, ix.cmp[rows], ix.cmp_x[rows], ix.cmp_y[rows], spectra, attrs,
+                     skipped_qc, warnings_out)
+
+
+def _assemble(t0, analysed, fields, cmp, cmp_x, cmp_y, spectra, attrs, skipped_qc, warnings_out) -> LineResult:
+    """The LineResult of a line pass over ``analysed`` (shared by run and revise)."""
+    def cat(name, dtype):
+        return np.concatenate([getattr(o.picks, name) for o in analysed]).astype(dtype)
+
+    flags = cat("flags", np.uint16)
+    picks = {
+        "cmp": np.concatenate([np.full(o.picks.t0.size, o.cmp, dtype=np.int64) for o in analysed]),
+        "t0": cat("t0", np.float64),
+        "vrms": cat("velocity", np.float32),
+        "coherence": cat("coherence", np.float32),
+        "sigma": cat("sigma", np.float32),
+        "flags": flags,
+        "used": ((flags & EXCLUDED) == 0).astype(np.uint8),
+        "vint_sigma": np.concatenate(fields["pick_vint_sigma"]).astype(np.float32),
+    }
+    if fields["eta"] is not None:
+        picks["eta"] = np.concatenate([o.pick_eta if o.pick_eta is not None else np.zeros(o.picks.t0.size)
+                                       for o in analysed]).astype(np.float32)
+    qc = {
+        "live_traces": np.array([o.live for o in analysed], dtype=np.int32),
+        "nan_traces": np.array([o.dropped_nan for o in analysed], dtype=np.int32),
+        "dead_traces": np.array([o.dropped_dead for o in analysed], dtype=np.int32),
+        "no_picks": fields["no_picks"],
+        "quality": fields["quality"],
+        "forced_count": fields["forced_count"],
+        "vint_forced": fields["forced"],
+        "vint_raw": fields["vint_raw"],
+        "path": np.stack([o.picks.path for o in analysed]).astype(np.float32),
+        **skipped_qc,
+    }
+    return LineResult(cmp=cmp, cmp_x=cmp_x, cmp_y=cmp_y, t0=t0, vrms=fields["vrms"], vint=fields["vint"],
+                      eta=fields["eta"], picks=picks, qc=qc, spectra=spectra,
                       depth={"z": fields["z"], "t0": fields["depth_t0"], "vint": fields["depth_vint"]},
-                      attrs=attrs, warnings=warnings_out)
+                      attrs=attrs, warnings=warnings_out, vint_sigma=fields["vint_sigma"])
+
+
+def revise_result(stored: dict, params: RunParams, edits: dict | None = None,
+                  source: str = "") -> LineResult:
+    """Rerun the line pass (edits, lateral regularisation, Dix, depth) from a stored result.
+
+    Nothing is rescanned: the picks, their flags and uncertainties, and the traced functions
+    come from the file (``stored`` as returned by :func:`velspec.io.result.read_result`).
+    ``params`` are the run's parameters with any changes to the pick and interval stages; in
+    ``guide`` mode the automatic picks are kept only inside the band around a person's function.
+    """
+    params.validate()
+    t0 = stored["t0"]
+    pcmp = stored["picks/cmp"]
+    order = np.argsort(pcmp, kind="stable")
+    starts = np.searchsorted(pcmp[order], stored["cmp"], side="left")
+    stops = np.searchsorted(pcmp[order], stored["cmp"], side="right")
+    n = pcmp.size
+    if "picks/sigma" not in stored or "qc/path" not in stored:
+        raise InputError("the result file has no pick uncertainties or traced functions (/picks/sigma, "
+                         "/qc/path): it was written by an older velspec; rerun velspec run")
+    sigma = stored["picks/sigma"]
+    flags = stored.get("picks/flags", np.zeros(n, np.uint16)).astype(np.uint16)
+    eta = stored.get("picks/eta")
+    records = []
+    for row, (cmp, a, b) in enumerate(zip(stored["cmp"], starts, stops)):
+        sel = order[a:b]
+        picks = PickResult(t0=stored["picks/t0"][sel].astype(np.float64),
+                           velocity=stored["picks/vrms"][sel].astype(np.float32),
+                           coherence=stored["picks/coherence"][sel].astype(np.float32),
+                           sigma=sigma[sel].astype(np.float32), flags=flags[sel].copy(),
+                           path=stored["qc/path"][row].astype(np.float32))
+        o = CmpOutcome(position=row, cmp=int(cmp), live=int(stored["qc/live_traces"][row]),
+                       dropped_nan=int(stored["qc/nan_traces"][row]), dropped_dead=int(stored["qc/dead_traces"][row]),
+                       picks=picks, pick_eta=None if eta is None else eta[sel].astype(np.float32))
+        records.append(o)
+    fields = line_pass(t0, records, params, edits=edits)
+    spectra = {k.split("/", 1)[1]: stored[k] for k in ("spectra/cmp", "spectra/velocity", "spectra/coherence")
+               if k in stored}
+    attrs = {k: v for k, v in stored["attrs"].items() if k != "format_version"}
+    attrs.update(created=_now(), parameters=params.to_json(), velspec_version=__version__,
+                 revised_from=source, edited_cmps=int(fields["edited_cmps"]))
+    skipped_qc = {k.split("/", 1)[1]: stored[k] for k in ("qc/skipped_cmp", "qc/skipped_nan_traces") if k in stored}
+    return _assemble(t0, records, fields, stored["cmp"], stored["cmp_x"], stored["cmp_y"], spectra, attrs,
+                     skipped_qc, [])
+
+
+def _now() -> str:
+    return _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0).isoformat()
 
 
 def _set_threads(threads: int) -> None:

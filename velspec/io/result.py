@@ -22,6 +22,7 @@ from ..errors import InputError
 UNITS = {
     "cmp": "1", "cmp_x": "m", "cmp_y": "m", "t0": "s", "vrms": "m/s", "vint": "m/s",
     "picks/cmp": "1", "picks/t0": "s", "picks/vrms": "m/s", "picks/coherence": "1", "picks/sigma": "m/s", "eta": "1", "picks/eta": "1",
+    "picks/flags": "1", "picks/used": "1", "picks/vint_sigma": "m/s", "vint_sigma": "m/s", "qc/quality": "1",
     "qc/live_traces": "1", "qc/nan_traces": "1", "qc/dead_traces": "1", "qc/no_picks": "1",
     "qc/forced_count": "1", "qc/vint_forced": "1", "qc/vint_raw": "m/s", "qc/path": "m/s",
     "qc/skipped_cmp": "1", "qc/skipped_nan_traces": "1",
@@ -37,6 +38,11 @@ DESCRIPTIONS = {
     "qc/vint_forced": "1 where the physical bounds changed vint by more than 1 m/s",
     "qc/path": "traced dynamic-programming velocity function on every t0 sample",
     "qc/no_picks": "1 where no pick passed the thresholds and the traced function was used",
+    "vint_sigma": "one-standard-deviation uncertainty of vint, propagated from the picks' sigma through Dix",
+    "picks/sigma": "one-standard-deviation uncertainty of the pick's stacking velocity, from its peak's shape",
+    "picks/vint_sigma": "uncertainty of the interval velocity ending at the pick (NaN where not used)",
+    "picks/used": "1 where the pick entered the velocity fields",
+    "qc/quality": "per CMP: 0 good, 1 fair, 2 poor (README: quality flag)",
 }
 
 
@@ -66,6 +72,8 @@ def write_result(path: str | Path, result, force: bool = False) -> Path:
                 _put(h5, name, getattr(result, name))
             if getattr(result, "eta", None) is not None:
                 _put(h5, "eta", result.eta)
+            if getattr(result, "vint_sigma", None) is not None:
+                _put(h5, "vint_sigma", result.vint_sigma)
             for group, content in (("picks", result.picks), ("qc", result.qc), ("spectra", result.spectra),
                                    ("depth", result.depth)):
                 for name, value in content.items():
@@ -87,6 +95,11 @@ def _put(h5: h5py.File, name: str, value: np.ndarray) -> None:
     ds.attrs["units"] = UNITS.get(name, "1")
     if name in DESCRIPTIONS:
         ds.attrs["description"] = DESCRIPTIONS[name]
+    if name == "picks/flags":
+        from ..pick import FLAG_NAMES
+
+        ds.attrs["bits"] = json.dumps({str(bit): label for bit, label in FLAG_NAMES.items()})
+        ds.attrs["description"] = "why a pick is doubtful or left out: a sum of the bits named in 'bits'"
 
 
 def read_result(path: str | Path) -> dict:

@@ -1,0 +1,129 @@
+"""Scoring an analysis of a generated line against what the line was made from.
+
+The expected answers come from outside the analysis: exact Snell's-law traveltimes through the
+flat layers of each CMP's model, the best-fit hyperbola of those times over the spread the run
+used (after the stretch mute), and the layer velocities themselves.
+
+- Stacking velocity: at each reflector's zero-offset time, the picked field against the
+  best-fit stacking velocity of the exact times. A value between that and the true RMS
+  velocity counts as right (the two differ by the spread-length bias, which no picker should
+  be blamed for); elsewhere the error is the distance to the nearer of the two.
+- Interval velocity: over blocks of equal two-way time, the time-average of the picked interval
+  velocity against the time-average of the model's layer velocities over the same block.
+- Multiples: a used pick on a multiple is one within a time and velocity tolerance of a
+  modelled multiple event and not within them of any primary.
+
+References
+----------
+Taner, M. T., and Koehler, F., 1969, Velocity spectra: digital computer derivation and
+applications of velocity functions: Geophysics 34, 859-881 (stacking vs RMS velocity).
+Dix, C. H., 1955, Seismic velocities from surface measurements: Geophysics 20, 68-86.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass
+class Score:
+    """Errors of one analysed line (relative errors as fractions)."""
+
+    vrms_errors: np.ndarray       # every (CMP, reflector) checked
+    vint_errors: np.ndarray       # every (CMP, block) checked
+    picks_on_multiples: int
+    used_picks: int
+    flagged_multiples: int
+
+    def summary(self) -> dict:
+        def pct(a, q):
+            return float(100 * np.percentile(a, q)) if a.size else float("nan")
+
+        return {"vrms_median_pct": pct(self.vrms_errors, 50), "vrms_p95_pct": pct(self.vrms_errors, 95),
+                "vrms_max_pct": pct(self.vrms_errors, 100), "vrms_checked": int(self.vrms_errors.size),
+                "vint_median_pct": pct(self.vint_errors, 50), "vint_p90_pct": pct(self.vint_errors, 90),
+                "vint_checked": int(self.vint_errors.size), "picks_on_multiples": self.picks_on_multiples,
+                "used_picks": self.used_picks, "flagged_multiples": self.flagged_multiples}
+
+
+def _get(result, name):
+    if isinstance(result, dict):
+        return result[name]
+    group, _, key = name.partition("/")
+    return getattr(result, group)[key] if key else getattr(result, group)
+
+
+def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: float = 0.150,
+               min_reflectivity: float = 1e-3, multiple_tolerance: tuple[float, float] = (0.024, 0.03),
+               multiples=None) -> Score:
+    """Score ``result`` (a LineResult or a read_result dict) against ``truth`` (a LineTruth).
+
+    Parameters
+    ----------
+    stretch_limit : float
+        The run's stretch mute, so that the best-fit stacking velocity uses the same spread.
+    tmin : float
+        Reflectors above this time are not checked, s.
+    block : float
+        Length of the interval-velocity blocks, s.
+    min_reflectivity : float
+        Interfaces with a smaller reflection coefficient make no event and are not checked.
+    multiple_tolerance : (s, fraction)
+        How close in time and relative velocity a pick must be to an event to be "on" it.
+    multiples : MultipleEvents, optional
+        The modelled multiples (``truth.multiple_events(...)``: ``t0`` and ``vstack``, (ncmp, E)).
+    """
+    vstack, _ = truth.stacking_velocity(stretch_limit=stretch_limit)
+    t_axis = np.asarray(_get(result, "t0"))
+    cmps = np.asarray(_get(result, "cmp"))
+    vrms_f = np.asarray(_get(result, "vrms"))
+    vint_f = np.asarray(_get(result, "vint"))
+    vrms_err, vint_err = [], []
+    for row, cmp in enumerate(cmps):
+        b = int(np.flatnonzero(truth.cmp == cmp)[0])
+        t_ref = truth.t0[b]
+        use = (t_ref >= tmin) & (np.abs(truth.reflection_coefficient[b]) > min_reflectivity) & (t_ref <= t_axis[-1])
+        use &= np.isfinite(vstack[b])
+        got = np.interp(t_ref[use], t_axis, vrms_f[row])
+        lo = np.minimum(vstack[b][use], truth.vrms[b][use])
+        hi = np.maximum(vstack[b][use], truth.vrms[b][use])
+        miss = np.where(got < lo, lo - got, np.where(got > hi, got - hi, 0.0))
+        vrms_err.append(miss / vstack[b][use])
+        # interval velocity: time averages over blocks between the first checked reflector and
+        # the last one (below it the field only extends the last layer)
+        if use.sum() >= 2:
+            start, stop = float(t_ref[use][0]), float(t_ref[use][-1])
+            edges = np.arange(start, stop - 0.5 * block + 1e-9, block)
+            tb = np.concatenate(([0.0], np.cumsum(2.0 * truth.thickness[b] / truth.velocity[b][:-1])))
+            for e in edges:
+                fine = np.linspace(e, min(e + block, stop), 301)
+                mid = 0.5 * (fine[1:] + fine[:-1])
+                layer = np.clip(np.searchsorted(tb, mid, side="right") - 1, 0, truth.velocity.shape[1] - 1)
+                true_mean = float(np.mean(truth.velocity[b][layer]))
+                got_mean = float(np.mean(np.interp(mid, t_axis, vint_f[row])))
+                vint_err.append([abs(got_mean - true_mean) / true_mean])
+    vrms_err = np.concatenate(vrms_err) if vrms_err else np.zeros(0)
+    vint_err = np.concatenate([np.asarray(v) for v in vint_err]) if vint_err else np.zeros(0)
+
+    pick_cmp = np.asarray(_get(result, "picks/cmp"))
+    pick_t = np.asarray(_get(result, "picks/t0"))
+    pick_v = np.asarray(_get(result, "picks/vrms"))
+    flags = np.asarray(_get(result, "picks/flags"))
+    used = np.asarray(_get(result, "picks/used")).astype(bool)
+    from velspec.pick import MULTIPLE
+
+    on_multiple = 0
+    if multiples is not None:
+        dt_tol, dv_tol = multiple_tolerance
+        for i in np.flatnonzero(used):
+            b = int(np.flatnonzero(truth.cmp == pick_cmp[i])[0])
+            near_p = (np.abs(truth.t0[b] - pick_t[i]) < dt_tol) & (
+                np.abs(pick_v[i] - vstack[b]) < dv_tol * vstack[b])
+            mt, mv = multiples.t0[b], multiples.vstack[b]
+            near_m = (np.abs(mt - pick_t[i]) < dt_tol) & (np.abs(pick_v[i] - mv) < dv_tol * mv)
+            if near_m.any() and not near_p.any():
+                on_multiple += 1
+    return Score(vrms_errors=vrms_err, vint_errors=vint_err, picks_on_multiples=on_multiple,
+                 used_picks=int(used.sum()), flagged_multiples=int(((flags & MULTIPLE) != 0).sum()))
