@@ -22,6 +22,7 @@ Dix, C. H., 1955, Seismic velocities from surface measurements: Geophysics 20, 6
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -266,6 +267,12 @@ def _transitions(velocities: np.ndarray, node_t: np.ndarray, params: PickParams,
     return out_lo, out_hi
 
 
+@functools.lru_cache(maxsize=8)
+def _cached_transitions(velocities: bytes, node_t: bytes, params: PickParams, vint_bounds):
+    # every CMP of a line shares its axes and parameters: work the ranges out once
+    return _transitions(np.frombuffer(velocities), np.frombuffer(node_t), params, vint_bounds)
+
+
 def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params: PickParams,
                    bounds: tuple[np.ndarray, np.ndarray] | None = None,
                    vint_bounds: tuple[float, float] | None = None) -> np.ndarray:
@@ -299,7 +306,9 @@ def trace_function(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, pa
     nearest = np.abs(velocities[None, :] - 0.5 * (lo_v + hi_v)[:, None]).argmin(axis=1)
     outside[np.arange(len(node_t)), nearest] = False
     score[outside] = -np.inf
-    lo, hi = _transitions(velocities, node_t, params, vint_bounds)
+    lo, hi = _cached_transitions(np.ascontiguousarray(velocities, dtype=np.float64).tobytes(),
+                                 np.ascontiguousarray(node_t, dtype=np.float64).tobytes(), params,
+                                 None if vint_bounds is None else tuple(map(float, vint_bounds)))
     path = _best_path(score, lo, hi, params.smoothness)
     return np.interp(t0, node_t, velocities[path])
 
@@ -313,24 +322,29 @@ def peak_sigma(column: np.ndarray, velocities: np.ndarray, r: int, v: float, c: 
     quiet column is sure; a broad or low one in a noisy column is not. The result is never below
     a twentieth of the local velocity sampling.
     """
+    return float(_peak_sigma(np.ascontiguousarray(column, dtype=np.float32),
+                             np.ascontiguousarray(velocities, dtype=np.float64), int(r), float(c), SIGMA_SCALE))
+
+
+@njit(cache=True, nogil=True)
+def _peak_sigma(column, velocities, r, c, scale):
     nv = column.size
-    b = float(np.median(column))
-    noise = 1.4826 * float(np.median(np.abs(column - b)))
+    b = np.median(column)
+    noise = 1.4826 * np.median(np.abs(column - b))
     half = 0.5 * (c + b)
-    grid = np.arange(nv, dtype=np.float64)
     i = r
     while i > 0 and column[i - 1] > half:
         i -= 1
-    left = grid[0] if i == 0 else i - (column[i] - half) / max(column[i] - column[i - 1], 1e-12)
+    left = 0.0 if i == 0 else i - (column[i] - half) / max(column[i] - column[i - 1], 1e-12)
     i = r
     while i < nv - 1 and column[i + 1] > half:
         i += 1
-    right = grid[-1] if i == nv - 1 else i + (column[i] - half) / max(column[i] - column[i + 1], 1e-12)
-    vl, vr = np.interp([left, right], grid, velocities)
-    width = 0.5 * (vr - vl)
-    step = float(velocities[min(r + 1, nv - 1)] - velocities[max(r - 1, 0)]) / 2.0
-    sigma = SIGMA_SCALE * width * max(noise, 1e-6) / max(c - b, 1e-3)
-    return float(max(sigma, 0.05 * step))
+    right = nv - 1.0 if i == nv - 1 else i + (column[i] - half) / max(column[i] - column[i + 1], 1e-12)
+    grid = np.arange(nv).astype(np.float64)
+    width = 0.5 * (np.interp(right, grid, velocities) - np.interp(left, grid, velocities))
+    step = (velocities[min(r + 1, nv - 1)] - velocities[max(r - 1, 0)]) / 2.0
+    sigma = scale * width * max(noise, 1e-6) / max(c - b, 1e-3)
+    return max(sigma, 0.05 * step)
 
 
 def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params: PickParams,
@@ -380,9 +394,11 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
     picks, path = _pick_along_path(panel, velocities, t0, params, bounds, vint_bounds, search, reach)
     slow = _as_arrays(_slow_events(panel, velocities, t0, path, reach, params))
     known = _classify_multiples(picks, slow, params)
-    if params.multiple_margin > 0 and known[4].size and (known[4] & MULTIPLE).any():
-        # Second pass with the recognised multiples blanked out of the panel, so that they
-        # neither pull the traced function nor hide the primaries beside them.
+    from_path = np.isin(known[0], picks[0]) & ((known[4] & MULTIPLE) != 0)
+    if params.multiple_margin > 0 and from_path.any():
+        # A pick along the traced function was a multiple: trace again with the recognised
+        # multiples blanked out of the panel, so that they neither pull the function nor hide
+        # the primaries beside them.
         blank = _blank_events(panel, velocities, t0, known, params)
         picks, path = _pick_along_path(blank, velocities, t0, params, bounds, vint_bounds, search, reach)
         again = _as_arrays(_slow_events(blank, velocities, t0, path, reach, params))
@@ -494,28 +510,33 @@ def _blank_events(panel, velocities, t0, events, params):
     nv, nt = out.shape
     dt = t0[1] - t0[0] if nt > 1 else 1.0
     half_t = max(int(round(params.min_separation / dt)), 1)
-    grid = np.arange(nv, dtype=np.float64)
-    for tm, vm, flag in zip(events[0], events[1], events[4]):
-        if not flag & MULTIPLE:
-            continue
-        j0 = int(round((tm - t0[0]) / dt))
-        r0 = int(np.clip(np.rint(np.interp(vm, velocities, grid)), 0, nv - 1))
-        for j in range(max(j0 - half_t, 0), min(j0 + half_t + 1, nt)):
-            col = out[:, j]
-            floor = float(np.median(col))
-            top = col[r0]
+    mult = (events[4] & MULTIPLE) != 0
+    cols = np.rint((events[0][mult] - t0[0]) / dt).astype(np.int64)
+    rows = np.clip(np.rint(np.interp(events[1][mult], velocities, np.arange(nv))), 0, nv - 1).astype(np.int64)
+    _blank(out, np.ascontiguousarray(panel, dtype=np.float32), cols, rows, half_t)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _blank(panel, original, cols, rows, half_t):
+    nv, nt = panel.shape
+    for e in range(cols.size):
+        r0 = rows[e]
+        for j in range(max(cols[e] - half_t, 0), min(cols[e] + half_t + 1, nt)):
+            floor = np.median(original[:, j])   # the background of the column as scanned
+            top = panel[r0, j]
             if top <= floor:
                 continue
             # down both flanks to the valley or nearly to the background, whichever comes first
             low = floor + 0.05 * (top - floor)
             lo = r0
-            while lo > 0 and low < col[lo - 1] <= col[lo]:
+            while lo > 0 and low < panel[lo - 1, j] <= panel[lo, j]:
                 lo -= 1
             hi = r0
-            while hi < nv - 1 and low < col[hi + 1] <= col[hi]:
+            while hi < nv - 1 and low < panel[hi + 1, j] <= panel[hi, j]:
                 hi += 1
-            col[lo:hi + 1] = floor
-    return out
+            for r in range(lo, hi + 1):
+                panel[r, j] = floor
 
 
 def _event_columns(along: np.ndarray, t0: np.ndarray, dt: float, params: PickParams):
