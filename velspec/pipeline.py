@@ -24,7 +24,7 @@ from .interval import depth_fields, fields_from_picks
 from .io.segy import Gather, SegyLine, open_line
 from .params import RunParams
 from .io.picks_csv import function_on_axis, read_functions
-from .pick import (DIX, EDITED, EXCLUDED, LOW_COHERENCE, MULTIPLE, OUTLIER, OUTSIDE_GUIDE, REPLACED, PickResult,
+from .pick import (AT_BOUND, DIX, EDITED, EXCLUDED, LOW_COHERENCE, MULTIPLE, OUTLIER, OUTSIDE_GUIDE, REPLACED, PickResult,
                    pick_panel, regional_trend)
 from .scan import scan_gather, velocity_axis
 
@@ -326,7 +326,8 @@ def cmp_quality(p: PickResult, fallback: bool, forced_count: int, params: RunPar
     candidates = (p.flags & MULTIPLE) == 0
     rejected = candidates & ((p.flags & (OUTLIER | DIX)) != 0)
     low = use & ((p.flags & LOW_COHERENCE) != 0)
-    if (forced_count > 0 or rejected.sum() > 0.25 * max(candidates.sum(), 1)
+    at_bound = use & ((p.flags & AT_BOUND) != 0)
+    if (forced_count > 0 or at_bound.any() or rejected.sum() > 0.25 * max(candidates.sum(), 1)
             or rel > 0.5 * params.pick.doubtful_sigma or low.sum() > 0.5 * use.sum()):
         return 1
     return 0
@@ -395,6 +396,12 @@ def run_line(path: str | Path, params: RunParams, progress_factory: Callable | N
     _set_threads(params.threads)
     edits = read_functions(params.pick.edits, need_cmp=True) if params.pick.edits else None
     with open_line(path, params.read) as line:
+        if edits:
+            # say so before a long scan, not after it
+            unknown = sorted(set(edits) - set(int(c) for c in line.index.cmp))
+            if unknown:
+                raise InputError(f"{params.pick.edits}: picks for CMP(s) the line does not have: "
+                                 f"{', '.join(map(str, unknown[:5]))}{' ...' if len(unknown) > 5 else ''}")
         guide_for = guide_source(params, line.times)
         update, close = progress_factory(line.ncmp) if progress_factory else (None, None)
         try:
