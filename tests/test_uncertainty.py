@@ -100,10 +100,6 @@ def test_pick_sigma_is_calibrated_on_generated_lines(generated_run):
     assert 0.35 <= med <= 1.3
 
 
-@pytest.mark.xfail(strict=True, reason="pick.peak_sigma does not rank picks by their error: the half of the "
-                   "picks with the larger stated sigma (median 6-8 m/s) has errors no larger than the other "
-                   "half (median 1.4-1.9 m/s, |z| 0.1-0.2), the other half sits near the 0.05-step floor "
-                   "(|z| ~1.1); only the pooled scatter matches")
 def test_pick_sigma_is_calibrated_for_narrow_and_wide_picks_alike(generated_run):
     # A calibrated sigma gives median |z| = 0.674 (normal distribution) in any subset chosen by
     # the stated sigma itself; split at the median sigma, each half must pass the pooled bounds.
