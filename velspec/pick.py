@@ -478,35 +478,48 @@ def _classify_multiples(picks, slow, params):
     t, v, flags = events[0], events[1], events[4]
     if params.multiple_margin <= 0:
         return events
-    b = t * v * v
-    tol_t, tol_v = params.multiple_time_tolerance, params.multiple_velocity_tolerance
-    for i in range(t.size):
-        if flags[i] & MULTIPLE:
+    _mark_multiples(t, v, events[2], flags, params.multiple_time_tolerance, params.multiple_velocity_tolerance,
+                    params.min_separation, MULTIPLE)
+    return events
+
+
+@njit(cache=True, nogil=True)
+def _mark_multiples(t, v, c, flags, tol_t, tol_v, reach, bit):
+    """Set ``bit`` in ``flags`` (in place) on predicted surface multiples and on their tails."""
+    n = t.size
+    for i in range(n):
+        if flags[i] & bit:
             continue
-        earlier = t < t[i] - tol_t
-        prim = np.flatnonzero(earlier & ((flags & MULTIPLE) == 0))
-        anyk = np.flatnonzero(earlier)
-        if not prim.size:
-            continue
-        tp = t[anyk][:, None] + t[prim][None, :]
-        vp = np.sqrt((b[anyk][:, None] + b[prim][None, :]) / tp)
-        hit = (np.abs(tp - t[i]) <= tol_t) & (np.abs(v[i] - vp) <= tol_v * vp)
-        if hit.any():
-            flags[i] |= MULTIPLE
+        hit = False
+        for a in range(n):                      # any earlier event, primary or multiple ...
+            if hit or t[a] >= t[i] - tol_t:
+                continue
+            for p in range(n):                  # ... combined with an earlier primary
+                if t[p] >= t[i] - tol_t or flags[p] & bit:
+                    continue
+                tp = t[a] + t[p]
+                if abs(tp - t[i]) > tol_t:
+                    continue
+                vp = np.sqrt((t[a] * v[a] * v[a] + t[p] * v[p] * v[p]) / tp)
+                if abs(v[i] - vp) <= tol_v * vp:
+                    hit = True
+                    break
+        if hit:
+            flags[i] |= bit
     # The coherence of a strong event smears along a diagonal of (t0, v): a later t0 with a
     # higher velocity (or an earlier with a lower) still fits its far offsets. A weaker maximum
     # on that diagonal of a recognised multiple is the multiple's tail, not a primary.
-    c = events[2]
-    for i in range(t.size):
-        if flags[i] & MULTIPLE:
+    for i in range(n):
+        if flags[i] & bit:
             continue
-        m = (flags & MULTIPLE) != 0
-        dt_m, dv_m = t[i] - t, v[i] - v
-        tail = (m & (c > c[i]) & (np.abs(dt_m) <= params.min_separation) & (dt_m * dv_m >= 0)
-                & (np.abs(dv_m) <= 2 * tol_v * v))
-        if tail.any():
-            flags[i] |= MULTIPLE
-    return events
+        for m in range(n):
+            if not flags[m] & bit or c[m] <= c[i]:
+                continue
+            dt_m = t[i] - t[m]
+            dv_m = v[i] - v[m]
+            if abs(dt_m) <= reach and dt_m * dv_m >= 0 and abs(dv_m) <= 2 * tol_v * v[m]:
+                flags[i] |= bit
+                break
 
 
 def _blank_events(panel, velocities, t0, events, params):
