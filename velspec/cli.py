@@ -183,7 +183,9 @@ def _cmd_run(args) -> int:
         print(f"velspec: warning: {message}", file=sys.stderr)
     write_result(out, result, force=args.force)
     if not args.quiet:
-        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {len(result.picks['t0'])} picks)", file=sys.stderr)
+        used = int(result.picks["used"].sum())
+        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {used} picks used of {len(result.picks['t0'])})",
+              file=sys.stderr)
     return EXIT_OK
 
 

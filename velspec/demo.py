@@ -60,7 +60,11 @@ def _summary(result: dict, truth, cmp: int, stretch_limit: float) -> str:
     # The exact answer for a picker: the best-fit hyperbola of the ray-traced times over the
     # offsets that pass the run's stretch mute (the RMS velocity is its short-spread limit).
     vstack, _ = truth.stacking_velocity(stretch_limit=stretch_limit)
-    lines = [f"velspec demo: {len(result['cmp'])} CMPs analysed, {len(result['picks/t0'])} picks",
+    used = result["picks/used"].astype(bool)
+    quality = np.bincount(result["qc/quality"], minlength=3)
+    lines = [f"velspec demo: {len(result['cmp'])} CMPs analysed, {int(used.sum())} picks used, "
+             f"{int((~used).sum())} left out or flagged as likely multiples; "
+             f"CMP quality good/fair/poor {quality[0]}/{quality[1]}/{quality[2]}",
              f"CMP {cmp}: picked stacking velocity against the model (m/s)",
              "   t0 (s)   model RMS   exact stacking   picked   picked - exact"]
     for tt, vt, vs in zip(truth.t0[trow], truth.vrms[trow], vstack[trow]):

@@ -17,6 +17,7 @@ from pathlib import Path
 from typing import Callable, Iterator
 
 import numpy as np
+from numba import njit
 
 from . import __version__
 from .errors import InputError
@@ -155,16 +156,34 @@ def smoothed_panel(items: list[_Scanned], centre: int, half: int) -> np.ndarray:
     me = items[centre]
     if half == 0:
         return me.panel
-    acc = np.zeros_like(me.panel)
-    total = 0.0
+    panels, weights = [], []
     for other in items:
         d = abs(other.position - me.position)
-        if other.panel is None or d > half:
-            continue
-        w = float(half + 1 - d)
-        acc += np.float32(w) * other.panel
-        total += w
-    return acc / np.float32(total)
+        if other.panel is not None and d <= half:
+            panels.append(other.panel)
+            weights.append(float(half + 1 - d))
+    if len(panels) == 1:
+        return me.panel
+    w = np.asarray(weights)
+    return _weighted_mean(tuple(panels), (w / w.sum()).astype(np.float32))
+
+
+def _weighted_mean(panels: tuple, weights: np.ndarray) -> np.ndarray:
+    out = np.empty_like(panels[0])
+    _accumulate(out, panels, weights)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _accumulate(out, panels, weights):
+    # one pass over the output, neighbours in a fixed order: same bits for any blocking
+    flat = out.reshape(-1)
+    flat[:] = 0.0
+    for k in range(len(panels)):
+        src = panels[k].reshape(-1)
+        w = weights[k]
+        for i in range(flat.size):
+            flat[i] += w * src[i]
 
 
 def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None = None,
@@ -272,31 +291,33 @@ def apply_edits(records: list[CmpOutcome], edits: dict, mode: str, params: RunPa
     return len(edits)
 
 
-def lateral_outliers(t0: np.ndarray, records: list[CmpOutcome], vrms: np.ndarray, params: RunParams) -> int:
+def lateral_outliers(t0: np.ndarray, records: list[CmpOutcome], vrms: np.ndarray, params: RunParams) -> list[int]:
     """Flag picks far from the running median of the stacking-velocity field along the line.
 
     The median over +-``lateral_cmps`` CMPs at each t0 follows a step in velocity (a fault, a
     change of facies) where a mean would smear it; a pick is an outlier only where it differs
     from it by more than ``outlier_tolerance`` and by more than ``outlier_sigmas`` of its own
-    uncertainty. A person's picks are never rejected. Returns the number of picks flagged.
+    uncertainty. A person's picks are never rejected. Returns the rows with a pick flagged.
     """
-    from scipy.ndimage import median_filter
-
     pp = params.pick
     if pp.lateral_cmps == 0 or len(records) < 3:
-        return 0
-    reference = median_filter(vrms, size=(2 * pp.lateral_cmps + 1, 1), mode="nearest")
-    flagged = 0
+        return []
+    k = pp.lateral_cmps
+    flagged = []
     for row, o in enumerate(records):
         p = o.picks
         candidate = p.used & ((p.flags & EDITED) == 0)
         if not candidate.any():
             continue
-        ref = np.interp(p.t0, t0, reference[row])
+        # the median over the neighbours' fields at this CMP's pick times only; the window
+        # shrinks at the ends of the line rather than repeating the end CMP
+        near = vrms[max(row - k, 0): row + k + 1]
+        ref = np.median(np.stack([np.interp(p.t0, t0, f) for f in near]), axis=0)
         dev = np.abs(p.velocity - ref)
         bad = candidate & (dev > pp.outlier_tolerance * ref) & (dev > pp.outlier_sigmas * p.sigma)
         p.flags[bad] |= OUTLIER
-        flagged += int(bad.sum())
+        if bad.any():
+            flagged.append(row)
     return flagged
 
 
@@ -344,13 +365,10 @@ def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams,
     nt = t0.size
     ncmp = len(analysed)
 
-    def all_fields():
-        return [_cmp_fields(t0, o.picks, params) for o in analysed]
-
-    per_cmp = all_fields()
-    if lateral_outliers(t0, analysed, np.stack([f.vrms for f, _, _ in per_cmp]) if ncmp else
-                        np.zeros((0, nt), np.float32), params):
-        per_cmp = all_fields()
+    per_cmp = [_cmp_fields(t0, o.picks, params) for o in analysed]
+    first = np.stack([f.vrms for f, _, _ in per_cmp]) if ncmp else np.zeros((0, nt), np.float32)
+    for row in lateral_outliers(t0, analysed, first, params):
+        per_cmp[row] = _cmp_fields(t0, analysed[row].picks, params)
     vrms = np.empty((ncmp, nt), dtype=np.float32)
     vint = np.empty_like(vrms)
     vint_raw = np.empty_like(vrms)
