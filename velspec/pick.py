@@ -166,6 +166,24 @@ def _range_maxima(panel, lo, hi):
     return rows, values
 
 
+@njit(cache=True, nogil=True)
+def _range_maxima_wide(panel, lo, hi):
+    """:func:`_range_maxima` for wide ranges: row by row, reading the panel in memory order."""
+    nv, nt = panel.shape
+    rows = np.full(nt, -1, dtype=np.int64)
+    values = np.zeros(nt, dtype=np.float64)
+    top = 0
+    for j in range(nt):
+        top = max(top, min(hi[j], nv - 1))
+    for r in range(top + 1):
+        line = panel[r]
+        for j in range(nt):
+            if lo[j] <= r <= hi[j] and (rows[j] < 0 or line[j] > values[j]):   # first maximum wins
+                rows[j] = r
+                values[j] = line[j]
+    return rows, values
+
+
 def corridor(t0: np.ndarray, params: PickParams, vmin: float, vmax: float) -> tuple[np.ndarray, np.ndarray]:
     """Lower and upper velocity bounds at each time, m/s: linear from the top to the bottom values."""
     top_lo = params.vmin_top or vmin
@@ -583,7 +601,7 @@ def _slow_events(panel, velocities, t0, path, reach, params):
     nv = velocities.size
     grid = np.arange(nv, dtype=np.float64)
     top = np.floor(np.interp(path * (1.0 - params.multiple_margin), velocities, grid, left=-1.0)).astype(np.int64)
-    rows, values = _range_maxima(panel, np.zeros_like(top), top)
+    rows, values = _range_maxima_wide(np.ascontiguousarray(panel, dtype=np.float32), np.zeros_like(top), top)
     out = []
     for j in _event_columns(values, t0, t0[1] - t0[0] if t0.size > 1 else 1.0, params):
         r = int(rows[j])
@@ -633,10 +651,12 @@ def _refine(column: np.ndarray, velocities: np.ndarray, r: int) -> tuple[float, 
     """Sub-sample peak by a parabola through (r-1, r, r+1); the vertex mapped back to velocity."""
     if r == 0 or r == len(column) - 1:
         return float(velocities[r]), float(column[r])
-    a, b, c = (float(x) for x in column[r - 1: r + 2])
+    a, b, c = float(column[r - 1]), float(column[r]), float(column[r + 1])
     curv = a - 2.0 * b + c
     shift = 0.5 * (a - c) / curv if curv < 0 else 0.0
-    shift = float(np.clip(shift, -0.5, 0.5))
-    v = float(np.interp(r + shift, np.arange(len(velocities)), velocities))
+    shift = min(max(shift, -0.5), 0.5)
+    # linear between the trial velocities on the side the vertex lies
+    k = r if shift >= 0 else r - 1
+    v = float(velocities[k]) + (r + shift - k) * float(velocities[k + 1] - velocities[k])
     # Every measure is at most 1 (perfect coherence); the parabola may overshoot it by a hair.
     return v, min(b - 0.25 * (a - c) * shift, 1.0)
