@@ -365,10 +365,6 @@ def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams,
     nt = t0.size
     ncmp = len(analysed)
 
-    per_cmp = [_cmp_fields(t0, o.picks, params) for o in analysed]
-    first = np.stack([f.vrms for f, _, _ in per_cmp]) if ncmp else np.zeros((0, nt), np.float32)
-    for row in lateral_outliers(t0, analysed, first, params):
-        per_cmp[row] = _cmp_fields(t0, analysed[row].picks, params)
     vrms = np.empty((ncmp, nt), dtype=np.float32)
     vint = np.empty_like(vrms)
     vint_raw = np.empty_like(vrms)
@@ -377,9 +373,13 @@ def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams,
     forced_count = np.zeros(ncmp, dtype=np.int32)
     no_picks = np.zeros(ncmp, dtype=np.uint8)
     quality = np.zeros(ncmp, dtype=np.uint8)
-    pick_vint_sigma = []
+    pick_vint_sigma: list = [None] * ncmp
     eta = np.zeros((ncmp, nt), dtype=np.float32) if params.scan.moveout == "nonhyperbolic" else None
-    for row, (o, (f, use, fallback)) in enumerate(zip(analysed, per_cmp)):
+
+    def fill(row: int) -> None:
+        # straight into the output arrays: the line pass holds each field once
+        o = analysed[row]
+        f, use, fallback = _cmp_fields(t0, o.picks, params)
         vrms[row], vint[row], vint_raw[row], vint_sigma[row] = f.vrms, f.vint, f.vint_raw, f.vint_sigma
         forced[row] = f.forced
         forced_count[row] = f.forced_count
@@ -388,9 +388,16 @@ def line_pass(t0: np.ndarray, outcomes: list[CmpOutcome], params: RunParams,
         ps = np.full(o.picks.t0.size, np.nan, np.float32)
         if not fallback:
             ps[use] = f.pick_vint_sigma
-        pick_vint_sigma.append(ps)
+        pick_vint_sigma[row] = ps
         if eta is not None and o.pick_eta is not None and use.any():
             eta[row] = np.interp(t0, o.picks.t0[use], o.pick_eta[use])   # held beyond the end picks
+        elif eta is not None:
+            eta[row] = 0.0
+
+    for row in range(ncmp):
+        fill(row)
+    for row in lateral_outliers(t0, analysed, vrms, params):   # judged on the first fields, then redone
+        fill(row)
     z, t_of_z, vint_z = depth_fields(t0, vint, params.interval.dz)
     return {"vrms": vrms, "vint": vint, "vint_raw": vint_raw, "vint_sigma": vint_sigma, "forced": forced,
             "forced_count": forced_count, "no_picks": no_picks, "quality": quality, "eta": eta,
