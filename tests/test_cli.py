@@ -12,7 +12,8 @@ import numpy as np
 import pytest
 import segyio
 
-from velspec.cli import main
+from clitools import assert_user_error, no_output, run
+
 from velspec.synth import LineSpec, make_line
 
 
@@ -23,22 +24,10 @@ def line(tmp_path_factory):
     return path
 
 
-def run(argv, capsys):
-    status = main([str(a) for a in argv])
-    out = capsys.readouterr()
-    return status, out.out, out.err
 
 
-def assert_user_error(status, err, *words):
-    lines = [ln for ln in err.strip().splitlines() if ln]
-    assert status == 2
-    assert len(lines) == 1 and lines[0].startswith("velspec: error:"), err
-    for w in words:
-        assert w in lines[0], (w, lines[0])
 
 
-def no_output(directory):
-    return [p.name for p in directory.iterdir() if p.suffix in (".h5", ".partial") or p.name.endswith(".partial")]
 
 
 def test_result_file_follows_the_interface(line, tmp_path, capsys):
@@ -142,6 +131,23 @@ def test_bad_option_and_bad_config(line, tmp_path, capsys):
     cfg.write_text("[scan]\nwindwo = 0.05\n")
     status, _, err = run(["run", line, "--out", tmp_path / "r.h5", "--config", cfg], capsys)
     assert_user_error(status, err, "windwo")
+    assert no_output(tmp_path) == []
+
+
+@pytest.mark.parametrize("pick, words", [
+    ("bounds = [[0.0, 2000.0]]", ["bounds", "three numbers"]),
+    ("bounds = [[1.0, 2000.0, 3000.0], [0.5, 2100.0, 3100.0]]", ["increasing t0"]),
+    ("bounds = [[0.0, 3000.0, 2000.0]]", ["vmin < vmax"]),
+    ("guide_below = 1.5", ["guide_below"]),
+    ("edit_mode = \"merge\"", ["edit_mode"]),
+    ("smooth_cmps = -1", ["smooth_cmps"]),
+    ("multiple_velocity_tolerance = 0", ["multiple_velocity_tolerance"]),
+])
+def test_impossible_pick_parameters(line, tmp_path, capsys, pick, words):
+    cfg = tmp_path / "p.toml"
+    cfg.write_text(f"[pick]\n{pick}\n")
+    status, _, err = run(["run", line, "--out", tmp_path / "r.h5", "--config", cfg], capsys)
+    assert_user_error(status, err, *words)
     assert no_output(tmp_path) == []
 
 

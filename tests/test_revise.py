@@ -12,6 +12,8 @@ import h5py
 import numpy as np
 import pytest
 
+from clitools import assert_user_error, no_output, run
+
 from velspec.cli import main
 from velspec.params import PickParams
 from velspec.pick import EDITED, EXCLUDED, OUTSIDE_GUIDE, REPLACED
@@ -20,23 +22,10 @@ from velspec.synth import LineSpec, make_line
 HEADER = ["cmp", "t0_s", "vrms_m_s", "sigma_m_s", "coherence", "flags", "used"]
 
 
-def run(argv, capsys):
-    status = main([str(a) for a in argv])
-    out = capsys.readouterr()
-    return status, out.out, out.err
 
 
-def assert_user_error(status, err, *words):
-    lines = [ln for ln in err.strip().splitlines() if ln]
-    assert status == 2
-    assert len(lines) == 1 and lines[0].startswith("velspec: error:"), err
-    assert "Traceback" not in err
-    for w in words:
-        assert w in lines[0], (w, lines[0])
 
 
-def no_output(directory):
-    return [p.name for p in directory.iterdir() if p.suffix in (".h5", ".partial") or p.name.endswith(".partial")]
 
 
 def read(path):
