@@ -305,7 +305,7 @@ def _pick_arrays(picks) -> tuple[np.ndarray, ...]:
     """(cmp, t0, vrms, coherence) from a mapping with those keys or with ``picks/`` in front."""
     if not isinstance(picks, Mapping):
         raise ValueError("picks must be a mapping with arrays 'cmp', 't0', 'vrms' and 'coherence'")
-    prefix = "" if "cmp" in picks else "picks/"
+    prefix = "picks/" if "picks/cmp" in picks else ""
     try:
         cols = [np.asarray(picks[prefix + k]) for k in ("cmp", "t0", "vrms", "coherence")]
     except KeyError as err:

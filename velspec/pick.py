@@ -36,7 +36,7 @@ MAX_NODE_INTERVAL = 0.25  # s: longer steps would blur events closer than this
 # Why a pick is doubtful or left out (bits of /picks/flags). EXCLUDED ones never enter a field.
 LOW_COHERENCE = 1      # coherence below PickParams.doubtful_coherence: used, but doubtful
 MULTIPLE = 2           # much slower than the traced primary trend at its t0: a likely multiple
-AT_BOUND = 4           # the peak lay beyond a velocity bound; picked at the bound (forced)
+AT_BOUND = 4           # the peak lay beyond a velocity bound or the scan range; picked at the edge
 DIX = 8                # with a stronger neighbour it implied an impossible interval velocity
 OUTLIER = 16           # rejected by the lateral regularisation of the line pass
 EDITED = 32            # put there by a person (a pick CSV in replace mode)
@@ -476,6 +476,8 @@ def _pick_along_path(panel, velocities, t0, params, bounds, vint_bounds, search,
             flags |= AT_BOUND
         else:
             v, c = _refine(column, velocities, r)
+            if r == 0 or r == nv - 1:
+                flags |= AT_BOUND   # at the end of the scanned range: the peak may lie beyond it
         entries.append((t0[j], v, c, peak_sigma(column, velocities, r, v, c), flags))
     return _as_arrays(entries), path
 
