@@ -150,3 +150,18 @@ def test_picks_from_a_cmp_not_in_the_line_are_refused(noisy_line):
              "coherence": np.array([0.9])}
     with pytest.raises(ValueError, match="CMP 99"):
         crosscheck_line(path, picks, params.scan.stretch_limit, params.read)
+
+
+def test_a_stored_result_checks_the_same_picks(noisy_line, tmp_path):
+    # The flat dict of a result file (with /cmp beside /picks/cmp) must select the same used
+    # picks as the in-memory result; likely multiples and rejected picks are not checked.
+    from velspec.io.result import read_result, write_result
+
+    path, _, params, result = noisy_line
+    write_result(tmp_path / "r.h5", result)
+    stored = read_result(tmp_path / "r.h5")
+    a = crosscheck_line(path, result.picks, params.scan.stretch_limit, params.read)
+    b = crosscheck_line(path, stored, params.scan.stretch_limit, params.read)
+    assert np.array_equal(a.t0, b.t0) and np.array_equal(a.tx2_velocity, b.tx2_velocity, equal_nan=True)
+    used = stored["picks/used"].astype(bool)
+    assert set(zip(b.cmp, b.t0)) <= set(zip(stored["picks/cmp"][used], stored["picks/t0"][used]))

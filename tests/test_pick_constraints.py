@@ -163,3 +163,16 @@ def test_bad_guide_files_are_clear_errors(tmp_path, text, words):
         read_functions(path)
     for w in words:
         assert w in str(err.value)
+
+
+def test_peak_beyond_the_scanned_range_is_flagged_at_bound():
+    # An event whose coherence still rises at the slowest trial velocity: its peak lies below
+    # the scanned range, so the pick at the range's end is forced there (common practice, no
+    # source: a pick on the edge of a velocity spectrum is not a measurement).
+    from velspec.pick import AT_BOUND
+
+    panel = ridge(np.full(T0.size, 1450.0), height=0.2) + blob(1.0, 1330.0, 0.9, sv=120.0)
+    res = pick_panel(panel, VEL, T0, PickParams(multiple_margin=0.0), search=10)
+    at = np.abs(res.t0 - 1.0) < 0.02
+    assert at.sum() == 1 and res.velocity[at][0] == VEL[0]
+    assert res.flags[at][0] & AT_BOUND
