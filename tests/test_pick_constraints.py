@@ -176,3 +176,28 @@ def test_peak_beyond_the_scanned_range_is_flagged_at_bound():
     at = np.abs(res.t0 - 1.0) < 0.02
     assert at.sum() == 1 and res.velocity[at][0] == VEL[0]
     assert res.flags[at][0] & AT_BOUND
+
+
+def test_reverberations_of_an_unseen_shallow_sea_floor_are_recognised():
+    # A sea floor at 0.13 s too shallow to be picked still makes its reverberations at 0.26,
+    # 0.39 and 0.52 s (water velocity) and the peg-leg of the primary at 0.45 s at 0.58 s, whose
+    # stacking velocity is the RMS over its path, V^2 = (0.45*1800^2 + 0.13*1520^2)/0.58 (Dix,
+    # 1955; flat layers, common practice for surface multiples). The train at 1.5x the first
+    # event's time and the same velocity betrays the floor; the primaries stay.
+    vw, vp = 1520.0, 1800.0
+    peg = np.sqrt((0.45 * vp**2 + 0.13 * vw**2) / 0.58)
+    panel = ridge(1500 + 500 * T0, height=0.1)
+    for t, v, h in ((0.26, vw, 0.9), (0.39, vw, 0.8), (0.52, vw, 0.7), (0.45, vp, 0.6), (0.58, peg, 0.8),
+                    (1.2, 2100.0, 0.7), (2.0, 2500.0, 0.7)):
+        panel += blob(t, v, h, st=0.015)
+    params = PickParams(min_separation=0.06)
+    res = pick_panel(panel, VEL, T0, params, search=12, vint_bounds=(1400.0, 7000.0))
+    used_t = res.t0[res.used]
+    for t in (0.26, 0.39, 0.52, 0.58):
+        assert np.min(np.abs(used_t - t)) > 0.02, (t, used_t)
+    for t in (0.45, 1.2, 2.0):
+        assert np.min(np.abs(used_t - t)) <= 0.01, (t, used_t)
+    # Given the floor instead (water_bottom, water_velocity), the same holds.
+    given = PickParams(min_separation=0.06, water_bottom=0.13, water_velocity=vw)
+    res = pick_panel(panel, VEL, T0, given, search=12, vint_bounds=(1400.0, 7000.0))
+    assert np.min(np.abs(res.t0[res.used] - 0.58)) > 0.02

@@ -156,6 +156,10 @@ class PickParams:
         How close (s, and fraction of velocity) a pick must come to a surface multiple
         predicted from two earlier events, t0 = t_a + t_b and V^2 = (t_a V_a^2 + t_b V_b^2) /
         (t_a + t_b), to count as that multiple (defaults 0.04 s, about a scan window, and 0.03).
+    water_bottom, water_velocity : float
+        Two-way time of the sea floor, s, and the water velocity, m/s (defaults 0: found from
+        the picks, or from its reverberations when it is too shallow to be picked; 1500). Give
+        them where the water depth is known and shallow, so that its multiples are predicted.
     min_coherence : float
         Coherence below which a local maximum along the path is not picked (default 0.1).
     min_prominence : float
@@ -209,6 +213,8 @@ class PickParams:
     multiple_margin: float = 0.08
     multiple_time_tolerance: float = 0.04
     multiple_velocity_tolerance: float = 0.03
+    water_bottom: float = 0.0
+    water_velocity: float = 1500.0
     min_coherence: float = 0.1
     min_prominence: float = 0.15
     min_live: int = 6
@@ -251,6 +257,8 @@ class PickParams:
         _check(_finite_positive(self.multiple_time_tolerance), "multiple_time_tolerance must be > 0 s")
         _check(_finite_positive(self.multiple_velocity_tolerance) and self.multiple_velocity_tolerance < 1,
                "multiple_velocity_tolerance must be in (0, 1)")
+        _check(_finite_nonneg(self.water_bottom), "water_bottom must be a two-way time >= 0 s (0: unknown)")
+        _check(_finite_positive(self.water_velocity), "water_velocity must be a positive velocity in m/s")
         _check(0 <= self.doubtful_coherence <= 1, "doubtful_coherence must be in [0, 1]")
         _check(_finite_positive(self.doubtful_sigma), "doubtful_sigma must be > 0")
         for name in ("smooth_cmps", "lateral_cmps"):

@@ -32,6 +32,7 @@ from scipy.signal import find_peaks, peak_widths
 from .params import PickParams
 
 MAX_NODE_INTERVAL = 0.25  # s: longer steps would blur events closer than this
+MAX_PASSES = 3            # tracings of one panel: the first, and up to two with multiples blanked
 
 # Why a pick is doubtful or left out (bits of /picks/flags). EXCLUDED ones never enter a field.
 LOW_COHERENCE = 1      # coherence below PickParams.doubtful_coherence: used, but doubtful
@@ -417,16 +418,19 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         # Live when x <= v t0 sqrt((1+s)^2 - 1): the stretch mute of velspec.scan.moveout.
         factor = np.sqrt((1.0 + stretch_limit) ** 2 - 1.0)
         ranked = np.sort(np.abs(offsets))
-        reach = lambda j, v: np.searchsorted(ranked, v * max(t0[j], 0.0) * factor, side="right")  # noqa: E731
+        reach = lambda j, v: np.searchsorted(ranked, v * np.maximum(t0[j], 0.0) * factor, side="right")  # noqa: E731
     picks, path = _pick_along_path(panel, velocities, t0, params, bounds, vint_bounds, search, reach)
     slow = _as_arrays(_slow_events(panel, velocities, t0, path, reach, params))
     known = _classify_multiples(picks, slow, params)
-    from_path = np.isin(known[0], picks[0]) & ((known[4] & MULTIPLE) != 0)
-    if params.multiple_margin > 0 and from_path.any():
+    blank = panel
+    for _ in range(MAX_PASSES - 1):
+        from_path = np.isin(known[0], picks[0]) & ((known[4] & MULTIPLE) != 0)
+        if params.multiple_margin <= 0 or not from_path.any():
+            break
         # A pick along the traced function was a multiple: trace again with the recognised
         # multiples blanked out of the panel, so that they neither pull the function nor hide
-        # the primaries beside them.
-        blank = _blank_events(panel, velocities, t0, known, params)
+        # the primaries beside them. A new pass can show multiples the last one hid.
+        blank = _blank_events(blank, velocities, t0, known, params)
         picks, path = _pick_along_path(blank, velocities, t0, params, bounds, vint_bounds, search, reach)
         again = _as_arrays(_slow_events(blank, velocities, t0, path, reach, params))
         prior = [a[(known[4] & MULTIPLE) != 0] for a in known]
@@ -498,9 +502,39 @@ def _classify_multiples(picks, slow, params):
     t, v, flags = events[0], events[1], events[4]
     if params.multiple_margin <= 0:
         return events
-    _mark_multiples(t, v, events[2], flags, params.multiple_time_tolerance, params.multiple_velocity_tolerance,
+    c = events[2]
+    floor = _sea_floor(t, v, flags, params)
+    if floor is not None:
+        # an unseen sea floor still makes multiples: it takes part in the predictions only
+        t, v, c = (np.concatenate(([x], a)) for x, a in zip(floor + (1.0,), (t, v, c)))
+        flags = np.concatenate((np.zeros(1, flags.dtype), flags))
+    _mark_multiples(t, v, c, flags, params.multiple_time_tolerance, params.multiple_velocity_tolerance,
                     params.min_separation, MULTIPLE)
+    if floor is not None:
+        events[4][:] = flags[1:]
     return events
+
+
+def _sea_floor(t, v, flags, params):
+    """(t0, v) of a sea floor that no pick holds, or None.
+
+    Given (``water_bottom`` > 0) it is used unless a pick lies there already. Otherwise it is
+    inferred from its reverberations: when the earliest pick (t1, V1) has a companion at 1.5 t1
+    with the same velocity, the two are the second and third passes of a water layer whose
+    floor at t1 / 2 was too shallow to be seen inside the stretch mute, and no primary could
+    keep the stacking velocity unchanged over that interval while the earth below the sea
+    floor is faster than the water.
+    """
+    tol_t, tol_v = params.multiple_time_tolerance, params.multiple_velocity_tolerance
+    if params.water_bottom > 0:
+        near = np.abs(t - params.water_bottom) <= tol_t
+        return None if near.any() else (params.water_bottom, params.water_velocity)
+    prim = np.flatnonzero((flags & MULTIPLE) == 0)
+    if prim.size < 2:
+        return None
+    t1, v1 = t[prim[0]], v[prim[0]]
+    third = (np.abs(t - 1.5 * t1) <= tol_t) & (np.abs(v - v1) <= tol_v * v1)
+    return (0.5 * t1, v1) if third.any() else None
 
 
 @njit(cache=True, nogil=True)
