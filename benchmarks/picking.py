@@ -2,6 +2,7 @@
 
     python benchmarks/picking.py            # every scenario, figures to results/picking-*.md|json
     python benchmarks/picking.py reverb     # one scenario
+    python benchmarks/picking.py --variants # robustness: other seeds, water depths, noise
 
 Scenarios (all invented or built from the open logs in ../shared/data/wells):
 
@@ -23,6 +24,7 @@ against the model's layer velocities.
 from __future__ import annotations
 
 import json
+import re
 import sys
 import tempfile
 import time
@@ -78,6 +80,34 @@ def scenarios() -> dict:
     return out
 
 
+def variants() -> dict:
+    """Robustness: the reverberant scenario under other seeds, water depths and noise (50 CMPs
+    each), and the F03-02 line at S/N 1 and with first-order multiples."""
+    from velspec.synth import reverb_model
+
+    out = {}
+    for seed in (1, 2, 3):
+        sp = reverb_spec()
+        sp.seed, sp.ncmp = seed, 50
+        out[f"reverb seed {seed}"] = (sp, None)
+    h, v = reverb_model()
+    for water, given in ((100.0, False), (100.0, True), (250.0, False)):
+        hh = h.copy()
+        hh[0] = water
+        sp = reverb_spec()
+        sp.model, sp.ncmp = (hh, v), 50
+        params = (RunParams().with_overrides(pick__water_bottom=2 * water / v[0], pick__water_velocity=float(v[0]))
+                  .validate() if given else None)
+        out[f"reverb water {water:.0f} m{' (water_bottom given)' if given else ''}"] = (sp, params)
+    sp = reverb_spec()
+    sp.snr, sp.ncmp = 0.5, 50
+    out["reverb S/N 0.5"] = (sp, None)
+    if (WELLS / "F03-02.las").exists():
+        out["f03 S/N 1"] = (sonic_line_spec(WELLS / "F03-02.las", water=40.0, snr=1.0), None)
+        out["f03 + first-order multiples"] = (sonic_line_spec(WELLS / "F03-02.las", water=40.0, multiples=True), None)
+    return out
+
+
 def measure(name: str, spec: LineSpec, workdir: Path, params: RunParams | None = None) -> dict:
     path = workdir / f"{name}.sgy"
     truth = make_line(path, spec)
@@ -95,14 +125,18 @@ def measure(name: str, spec: LineSpec, workdir: Path, params: RunParams | None =
 
 
 def main(argv: list[str]) -> int:
-    chosen = argv or list(scenarios())
     table = {}
     with tempfile.TemporaryDirectory() as tmp:
-        for name, spec in scenarios().items():
-            if name in chosen:
-                table[name] = measure(name, spec, Path(tmp), p135_params() if name == "p135" else None)
-                print(name, json.dumps(table[name]))
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+        if argv == ["--variants"]:
+            runs = variants()
+        else:
+            chosen = argv or list(scenarios())
+            runs = {name: (spec, p135_params() if name == "p135" else None)
+                    for name, spec in scenarios().items() if name in chosen}
+        for name, (spec, params) in runs.items():
+            table[name] = measure(re.sub(r"[^A-Za-z0-9]+", "_", name), spec, Path(tmp), params)
+            print(name, json.dumps(table[name]))
+    stamp = ("variants-" if argv == ["--variants"] else "") + datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
     results = HERE / "results"
     results.mkdir(exist_ok=True)
     (results / f"picking-{stamp}.json").write_text(json.dumps(table, indent=2))
