@@ -26,7 +26,7 @@ import functools
 from dataclasses import dataclass
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 from scipy.signal import find_peaks, peak_widths
 
 from .params import PickParams
@@ -131,13 +131,13 @@ def _best_path(score, lo, hi, penalty=0.0):
     return path
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, parallel=True)
 def _node_scores(panel, edges):
     """Mean coherence over each node's samples: (nnode, nv) float64 from a (nv, nt) panel."""
     nv = panel.shape[0]
     nnode = edges.shape[0] - 1
     out = np.empty((nnode, nv))
-    for v in range(nv):
+    for v in prange(nv):   # one thread per velocity: the same bits for any thread count
         for n in range(nnode):
             acc = 0.0
             for j in range(edges[n], edges[n + 1]):

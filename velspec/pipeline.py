@@ -17,7 +17,7 @@ from pathlib import Path
 from typing import Callable, Iterator
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 from . import __version__
 from .errors import InputError
@@ -174,16 +174,17 @@ def _weighted_mean(panels: tuple, weights: np.ndarray) -> np.ndarray:
     return out
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, parallel=True)
 def _accumulate(out, panels, weights):
-    # one pass over the output, neighbours in a fixed order: same bits for any blocking
-    flat = out.reshape(-1)
-    flat[:] = 0.0
-    for k in range(len(panels)):
-        src = panels[k].reshape(-1)
-        w = weights[k]
-        for i in range(flat.size):
-            flat[i] += w * src[i]
+    # each output value summed by one thread, neighbours in a fixed order: the same bits for
+    # any blocking and any thread count
+    nv, nt = out.shape
+    for r in prange(nv):
+        for j in range(nt):
+            acc = np.float32(0.0)
+            for k in range(len(panels)):
+                acc += weights[k] * panels[k][r, j]
+            out[r, j] = acc
 
 
 def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None = None,
