@@ -27,7 +27,6 @@ from dataclasses import dataclass
 
 import numpy as np
 from numba import njit, prange
-from scipy.signal import find_peaks, peak_widths
 
 from .params import PickParams
 
@@ -619,15 +618,100 @@ def _event_columns(along: np.ndarray, t0: np.ndarray, dt: float, params: PickPar
     """Columns where a series of coherence maxima has an event: prominent peaks, each moved to
     the centre of its plateau, ascending and unique."""
     sep = max(int(round(params.min_separation / dt)), 1)
-    peaks, _ = find_peaks(along, height=params.min_coherence, prominence=params.min_prominence, distance=sep)
-    peaks = peaks[t0[peaks] >= params.tmin]
+    peaks, left, right = _prominent_peaks(np.ascontiguousarray(along, dtype=np.float64), float(params.min_coherence),
+                                          float(params.min_prominence), sep, float(t0[0]), float(dt),
+                                          float(params.tmin))
     if not peaks.size:
         return []
     # Semblance of a zero-phase wavelet is a plateau about the event: its centre (where the
     # plateau falls to half its prominence on either side) is steadier than its noisy maximum.
-    _, _, left, right = peak_widths(along, peaks, rel_height=0.5)
     centres = np.clip(np.rint(0.5 * (left + right)).astype(np.int64), 0, t0.size - 1)
     return [int(j) for j in np.unique(centres)]
+
+
+@njit(cache=True, nogil=True)
+def _prominent_peaks(x, hmin, pmin, distance, t_first, dt, tmin):
+    """Peaks of ``x`` as ``scipy.signal.find_peaks(x, height=hmin, prominence=pmin,
+    distance=distance)`` selects them, those at t >= tmin, with the interpolated positions where
+    each falls to half its prominence (``scipy.signal.peak_widths(..., rel_height=0.5)``)."""
+    n = x.size
+    # local maxima; a flat top counts once, at its middle
+    cand = np.empty(n // 2 + 1, dtype=np.int64)
+    m = 0
+    i = 1
+    while i < n - 1:
+        if x[i - 1] < x[i]:
+            ahead = i + 1
+            while ahead < n - 1 and x[ahead] == x[i]:
+                ahead += 1
+            if x[ahead] < x[i]:
+                cand[m] = (i + ahead - 1) // 2
+                m += 1
+                i = ahead
+        i += 1
+    peaks = np.empty(m, dtype=np.int64)
+    k = 0
+    for q in range(m):
+        if x[cand[q]] >= hmin:
+            peaks[k] = cand[q]
+            k += 1
+    peaks = peaks[:k]
+    # distance: higher peaks first, each removes lower ones closer than `distance`
+    keep = np.ones(k, dtype=np.bool_)
+    order = np.argsort(x[peaks], kind="mergesort")
+    for q in range(k - 1, -1, -1):
+        j = order[q]
+        if not keep[j]:
+            continue
+        a = j - 1
+        while a >= 0 and peaks[j] - peaks[a] < distance:
+            keep[a] = False
+            a -= 1
+        a = j + 1
+        while a < k and peaks[a] - peaks[j] < distance:
+            keep[a] = False
+            a += 1
+    peaks = peaks[keep]
+    out = np.empty(peaks.size, dtype=np.int64)
+    lefts = np.empty(peaks.size)
+    rights = np.empty(peaks.size)
+    c = 0
+    for p in peaks:
+        top = x[p]
+        # prominence: down each side until a higher sample or the end, the lowest point
+        lo_min, lo_base = top, p
+        i = p
+        while i >= 0 and x[i] <= top:
+            if x[i] < lo_min:
+                lo_min, lo_base = x[i], i
+            i -= 1
+        hi_min, hi_base = top, p
+        i = p
+        while i <= n - 1 and x[i] <= top:
+            if x[i] < hi_min:
+                hi_min, hi_base = x[i], i
+            i += 1
+        prominence = top - max(lo_min, hi_min)
+        if prominence < pmin or t_first + p * dt < tmin:
+            continue
+        height = top - 0.5 * prominence
+        i = p
+        while lo_base < i and height < x[i]:
+            i -= 1
+        left = float(i)
+        if x[i] < height:
+            left += (height - x[i]) / (x[i + 1] - x[i])
+        i = p
+        while i < hi_base and height < x[i]:
+            i += 1
+        right = float(i)
+        if x[i] < height:
+            right -= (height - x[i]) / (x[i - 1] - x[i])
+        out[c] = p
+        lefts[c] = left
+        rights[c] = right
+        c += 1
+    return out[:c], lefts[:c], rights[:c]
 
 
 def _slow_events(panel, velocities, t0, path, reach, params):
