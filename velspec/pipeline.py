@@ -313,7 +313,11 @@ def lateral_outliers(t0: np.ndarray, records: list[CmpOutcome], vrms: np.ndarray
         # the median over the neighbours' fields at this CMP's pick times only; the window
         # shrinks at the ends of the line rather than repeating the end CMP
         near = vrms[max(row - k, 0): row + k + 1]
-        ref = np.median(np.stack([np.interp(p.t0, t0, f) for f in near]), axis=0)
+        cols = np.clip(np.searchsorted(t0, p.t0), 0, t0.size - 1)
+        if np.array_equal(t0[cols], p.t0):      # automatic picks sit on samples: no interpolation
+            ref = np.median(near[:, cols], axis=0)
+        else:
+            ref = np.median(np.stack([np.interp(p.t0, t0, f) for f in near]), axis=0)
         dev = np.abs(p.velocity - ref)
         bad = candidate & (dev > pp.outlier_tolerance * ref) & (dev > pp.outlier_sigmas * p.sigma)
         p.flags[bad] |= OUTLIER
