@@ -493,7 +493,8 @@ def _classify_multiples(picks, slow, params):
     V^2 = (t_a V_a^2 + t_b V_b^2) / (t_a + t_b) (Dix, 1955). Walking down in time, a pick that
     an earlier pair of events (a primary and a primary or recognised multiple) predicts within
     ``multiple_time_tolerance`` and ``multiple_velocity_tolerance`` is a likely multiple; so
-    are the slow events, which no primary trend explains.
+    are the slow events, which no primary trend explains, and the weaker maxima on a recognised
+    multiple's smear. A sea floor that no pick holds (:func:`_sea_floor`) joins the predictions.
     """
     events = [np.concatenate([a, b]) for a, b in zip(picks, slow)]
     order = np.argsort(events[0], kind="stable")
