@@ -240,19 +240,8 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
     yield from ready(np.inf)
 
 
-def analyse_gather(gather: Gather, times: np.ndarray, dt: float, params: RunParams,
-                   velocities: np.ndarray, keep_panel: bool = False,
-                   guide: np.ndarray | None = None) -> CmpOutcome:
-    """Scan and pick one gather on its own (no lateral smoothing)."""
-    outcome, panel, best = scan_one(gather, times, dt, params, velocities)
-    if panel is not None:
-        pick_one(outcome, gather, panel, best, times, params, velocities, guide)
-        if keep_panel:
-            outcome.panel = panel
-    return outcome
-
-
 EDITED_SIGMA = 0.01  # uncertainty given to a person's pick, as a fraction of its velocity
+FALLBACK_SIGMA = 0.05  # the same for the traced function where a CMP has no pick: poor, and said so
 
 
 def apply_edits(records: list[CmpOutcome], edits: dict, mode: str, params: RunParams) -> int:
@@ -336,7 +325,7 @@ def _cmp_fields(t0: np.ndarray, p: PickResult, params: RunParams):
         start = max(params.pick.tmin, float(t0[t0 > 0][0]))
         pick_t = np.append(np.arange(start, t0[-1], params.pick.min_separation), t0[-1])
         pick_v = np.interp(pick_t, t0, p.path).astype(np.float32)
-        pick_s = (EDITED_SIGMA * 5 * pick_v).astype(np.float32)  # a guess of 5 %: say it is poor
+        pick_s = (FALLBACK_SIGMA * pick_v).astype(np.float32)
     f = fields_from_picks(t0, pick_t, pick_v, params.interval, pick_sigma=pick_s)
     return f, use, fallback
 
