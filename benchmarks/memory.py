@@ -18,7 +18,8 @@ from pathlib import Path
 
 from velspec.synth import LineSpec, make_line
 
-FIELDS_PER_CMP = 10  # vrms, vint, vint_sigma, qc/vint_raw, qc/path, qc/vint_forced (uint8, counted as 4 B), depth t0/vint, ...
+# vrms, vint, vint_sigma, qc/vint_raw, qc/path, qc/vint_forced (uint8, counted as 4 B), depth t0/vint, ...
+FIELDS_PER_CMP = 10
 
 
 def peak_rss_of(cmd: list[str]) -> int:

@@ -11,7 +11,6 @@ import h5py
 import numpy as np
 import pytest
 import segyio
-
 from clitools import assert_user_error, no_output, run
 
 from velspec.synth import LineSpec, make_line
@@ -55,11 +54,13 @@ def test_result_file_follows_the_interface(line, tmp_path, capsys):
         assert np.all(np.diff(h5["cmp"][:]) > 0)
         assert np.isfinite(h5["vrms"][:]).all() and np.isfinite(h5["vint"][:]).all()
         vint = h5["vint"][:]
-        assert vint.min() >= params["interval"]["vint_min"] - 1e-3 and vint.max() <= params["interval"]["vint_max"] + 1e-3
+        bounds = params["interval"]
+        assert vint.min() >= bounds["vint_min"] - 1e-3 and vint.max() <= bounds["vint_max"] + 1e-3
         assert np.all((h5["picks/coherence"][:] >= 0) & (h5["picks/coherence"][:] <= 1))
         # Every dataset carries a units attribute (interface.md).
         missing = []
-        h5.visititems(lambda n, o: missing.append(n) if isinstance(o, h5py.Dataset) and "units" not in o.attrs else None)
+        h5.visititems(lambda n, o: missing.append(n)
+                      if isinstance(o, h5py.Dataset) and "units" not in o.attrs else None)
         assert not missing, missing
         # CMP x from the CDP X header with its scalar (SEG-Y rev 1 bytes 181 and 71).
         with segyio.open(line, ignore_geometry=True) as f:

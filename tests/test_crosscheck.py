@@ -9,6 +9,7 @@ from conftest import ricker
 from velspec.crosscheck import crosscheck_line, select_isolated, tx2_velocity
 from velspec.params import RunParams
 from velspec.pipeline import run_line
+from velspec.result import empty_picks
 from velspec.synth import LineSpec, make_line
 from velspec.synth.layers import reflection_times
 
@@ -119,7 +120,7 @@ def noisy_line(tmp_path_factory):
 
 def test_strong_isolated_picks_agree_with_coherence_and_exact_stacking_velocity(noisy_line):
     path, truth, params, result = noisy_line
-    check = crosscheck_line(path, result.picks, params.scan.stretch_limit, params.read)
+    check = crosscheck_line(path, result)     # the run's own stretch mute and header bytes
     assert check.failures == ()
     assert check.cmp.size >= 15             # nine reflectors per CMP, most strong and isolated
     assert np.all(check.ntraces >= 3)
@@ -146,22 +147,22 @@ def test_strong_isolated_picks_agree_with_coherence_and_exact_stacking_velocity(
 
 def test_picks_from_a_cmp_not_in_the_line_are_refused(noisy_line):
     path, _, params, _ = noisy_line
-    picks = {"cmp": np.array([99]), "t0": np.array([1.5]), "vrms": np.array([2000.0]),
-             "coherence": np.array([0.9])}
+    picks = empty_picks(1)
+    picks["cmp"], picks["t0"], picks["vrms"], picks["coherence"] = 99, 1.5, 2000.0, 0.9
     with pytest.raises(ValueError, match="CMP 99"):
         crosscheck_line(path, picks, params.scan.stretch_limit, params.read)
 
 
 def test_a_stored_result_checks_the_same_picks(noisy_line, tmp_path):
-    # The flat dict of a result file (with /cmp beside /picks/cmp) must select the same used
-    # picks as the in-memory result; likely multiples and rejected picks are not checked.
-    from velspec.io.result import read_result, write_result
+    # A result read back from its file must select the same used picks as the in-memory
+    # result; likely multiples and rejected picks are not checked.
+    from velspec.io.hdf5 import read_result, write_result
 
     path, _, params, result = noisy_line
     write_result(tmp_path / "r.h5", result)
     stored = read_result(tmp_path / "r.h5")
     a = crosscheck_line(path, result.picks, params.scan.stretch_limit, params.read)
-    b = crosscheck_line(path, stored, params.scan.stretch_limit, params.read)
+    b = crosscheck_line(path, stored)
     assert np.array_equal(a.t0, b.t0) and np.array_equal(a.tx2_velocity, b.tx2_velocity, equal_nan=True)
-    used = stored["picks/used"].astype(bool)
-    assert set(zip(b.cmp, b.t0)) <= set(zip(stored["picks/cmp"][used], stored["picks/t0"][used]))
+    used = stored.picks[stored.used]
+    assert set(zip(b.cmp, b.t0)) <= set(zip(used["cmp"], used["t0"]))

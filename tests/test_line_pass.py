@@ -5,14 +5,19 @@ import dataclasses
 
 import numpy as np
 import pytest
+from handmade import Line, T, outcome
 
 from velspec.errors import InputError
+from velspec.flags import EXCLUDED, Flag, used_mask
+from velspec.linepass import apply_edits
 from velspec.params import RunParams
-from velspec.pick import EDITED, EXCLUDED, MULTIPLE, OUTLIER, OUTSIDE_GUIDE, REPLACED, PickResult
-from velspec.pipeline import CmpOutcome, _Scanned, apply_edits, line_pass, run_line, smoothed_panel
+from velspec.pipeline import run_line
+from velspec.smoothing import smoothed_panel
 from velspec.synth import LineSpec, make_line
 
-T = np.arange(1, 751) * 0.004                       # 4 ms samples down to 3 s
+EDITED, MULTIPLE, OUTLIER = int(Flag.edited), int(Flag.likely_multiple), int(Flag.lateral_outlier)
+OUTSIDE_GUIDE, REPLACED = int(Flag.outside_guide), int(Flag.replaced)
+
 PICK_T = np.array([0.4, 0.8, 1.2, 1.6, 2.0, 2.4])
 # Interval velocities of each interval down to the picks; equal above and below 1.2 s, so
 # without the pick at 1.2 s Dix's linear t*V^2 (Dix, 1955) still passes through its value.
@@ -24,32 +29,22 @@ def rms_at_picks(vint=VINT, t=PICK_T):
     return np.sqrt(np.cumsum(vint ** 2 * np.diff(np.concatenate([[0.0], t]))) / t)
 
 
-def outcome(cmp, t0, v, sigma=10.0, flags=None, coherence=0.8):
-    n = len(t0)
-    t0 = np.asarray(t0, float)
-    v = np.asarray(v, np.float32)
-    picks = PickResult(t0=t0, velocity=v, coherence=np.full(n, coherence, np.float32),
-                       sigma=np.broadcast_to(np.asarray(sigma, np.float32), (n,)).copy(),
-                       flags=np.zeros(n, np.uint16) if flags is None else np.asarray(flags, np.uint16),
-                       path=np.interp(T, t0, v).astype(np.float32) if n else np.full(T.size, 2000, np.float32))
-    return CmpOutcome(position=cmp, cmp=cmp, live=48, dropped_nan=0, dropped_dead=0, picks=picks)
-
-
 def at(fields, row, t):
-    return np.interp(t, T, fields["vrms"][row])
+    return np.interp(t, T, fields.vrms[row])
 
 
 # -- lateral outlier rejection -------------------------------------------------------------
 
 def test_single_bad_pick_is_a_lateral_outlier():
     v = rms_at_picks()
-    records = [outcome(c, PICK_T, v) for c in range(15)]
     bad_cmp, bad_pick = 7, 2                        # the pick at 1.2 s, 10 % fast
-    records[bad_cmp].picks.velocity[bad_pick] *= np.float32(1.10)
-    fields = line_pass(T, records, RunParams())
-    flagged = [(o.cmp, i) for o in records for i in np.flatnonzero(o.picks.flags & OUTLIER)]
+    bad = v.copy()
+    bad[bad_pick] *= np.float32(1.10)
+    line = Line([outcome(c, PICK_T, bad if c == bad_cmp else v) for c in range(15)])
+    fields = line.run()
+    flagged = [(int(line.picks["cmp"][i]), int(i) % 6) for i in np.flatnonzero(line.picks["flags"] & OUTLIER)]
     assert flagged == [(bad_cmp, bad_pick)]
-    assert not records[bad_cmp].picks.used[bad_pick]
+    assert not used_mask(line.of(bad_cmp)["flags"])[bad_pick]
     # The CMP's field now follows its neighbours there (expected: the function the picks were
     # made from, RMS of the intervals, Dix 1955), where the bad pick would have put it 10 % off.
     t_bad = PICK_T[bad_pick]
@@ -63,9 +58,9 @@ def test_lateral_step_is_not_an_outlier():
     # median along the line follows the step, so nothing is rejected (common practice, no source).
     slow = rms_at_picks()
     fast = rms_at_picks(VINT * 1.08)
-    records = [outcome(c, PICK_T, slow if c < 8 else fast) for c in range(15)]
-    fields = line_pass(T, records, RunParams())
-    assert not any((o.picks.flags & OUTLIER).any() for o in records)
+    line = Line([outcome(c, PICK_T, slow if c < 8 else fast) for c in range(15)])
+    fields = line.run()
+    assert not (line.picks["flags"] & OUTLIER).any()
     for row in range(15):
         want = slow if row < 8 else fast
         assert np.allclose(at(fields, row, PICK_T), want, rtol=1e-5), row
@@ -92,18 +87,19 @@ def test_smoothed_panel_is_the_triangle_weighted_mean():
     rng = np.random.default_rng(4)
     panels = {p: rng.random((7, 11)).astype(np.float32) for p in range(10)}
     panels[4] = None                                 # a CMP with too few live traces
-    items = [_Scanned(p, None, None, panels[p]) for p in range(10)]
+    items = [panels[p] for p in range(10)]
+    pos = list(range(10))
     for k in (1, 2, 3):
         for centre in (0, 1, 3, 5, 9):
-            got = smoothed_panel(items, centre, k)
+            got = smoothed_panel(items, pos, centre, k)
             assert np.allclose(got, reference_smooth(panels, centre, k), rtol=2e-6, atol=1e-7), (k, centre)
             # only the neighbours count: a shorter list holding them gives the same bits
             lo, hi = max(centre - k, 0), min(centre + k + 1, 10)
-            assert np.array_equal(smoothed_panel(items[lo:hi], centre - lo, k), got)
-    assert smoothed_panel(items, 3, 0) is panels[3]
+            assert np.array_equal(smoothed_panel(items[lo:hi], pos[lo:hi], centre - lo, k), got)
+    assert smoothed_panel(items, pos, 3, 0) is panels[3]
     # the weights matter: a flat mean over the same CMPs differs
     flat = np.mean([panels[p] for p in (1, 2, 3, 5)], axis=0)
-    assert not np.allclose(smoothed_panel(items, 3, 2), flat, rtol=1e-3)
+    assert not np.allclose(smoothed_panel(items, pos, 3, 2), flat, rtol=1e-3)
 
 
 @pytest.fixture(scope="module")
@@ -152,35 +148,36 @@ def test_cmp_with_every_pick_excluded_is_poor():
     # six strong, narrow picks is good (0) and one whose picks are 5 % uncertain is poor
     # (common practice, no source: quality follows the evidence the picks carry).
     v = rms_at_picks()
-    records = [outcome(1, PICK_T, v), outcome(2, PICK_T, v, flags=np.full(6, MULTIPLE)),
-               outcome(3, PICK_T, v), outcome(4, PICK_T, v, sigma=0.05 * v)]
-    fields = line_pass(T, records, RunParams())
-    assert fields["quality"].dtype == np.uint8
-    assert list(fields["no_picks"]) == [0, 1, 0, 0]
-    assert list(fields["quality"]) == [0, 2, 0, 2]
+    line = Line([outcome(1, PICK_T, v), outcome(2, PICK_T, v, flags=np.full(6, MULTIPLE)),
+                 outcome(3, PICK_T, v), outcome(4, PICK_T, v, sigma=0.05 * v)])
+    fields = line.run()
+    assert fields.quality.dtype == np.uint8
+    assert list(fields.no_picks) == [0, 1, 0, 0]
+    assert list(fields.quality) == [0, 2, 0, 2]
 
 
 # -- a person's picks in the Python API ----------------------------------------------------
 
 def test_replace_mode_swaps_the_automatic_picks():
     v = rms_at_picks()
-    records = [outcome(c, PICK_T, v) for c in (10, 11, 12)]
+    line = Line([outcome(c, PICK_T, v) for c in (10, 11, 12)])
     mine_t = np.array([0.5, 1.0, 1.5, 2.2])
     mine_v = np.interp(mine_t, PICK_T, v) * 1.03
-    fields = line_pass(T, records, RunParams(), edits={11: (mine_t, mine_v)})
-    p = records[1].picks
-    edited = (p.flags & EDITED) != 0
+    fields = line.run(edits={11: (mine_t, mine_v)})
+    p = line.of(11)
+    used = used_mask(p["flags"])
+    edited = (p["flags"] & EDITED) != 0
     assert edited.sum() == 4
-    assert np.allclose(p.t0[edited], mine_t) and np.allclose(p.velocity[edited], mine_v)
-    assert np.all(p.flags[~edited] & REPLACED) and not p.used[~edited].any()
-    assert p.used[edited].all()
-    assert np.all(np.diff(p.t0) >= 0)
-    assert fields["edited_cmps"] == 1
+    assert np.allclose(p["t0"][edited], mine_t) and np.allclose(p["vrms"][edited], mine_v)
+    assert np.all(p["flags"][~edited] & REPLACED) and not used[~edited].any()
+    assert used[edited].all()
+    assert np.all(np.diff(p["t0"]) >= 0)
+    assert fields.edited_cmps == 1
     # The field of that CMP goes through the person's picks (t V^2 linear between them, Dix
     # 1955), the others keep their own.
     assert np.allclose(at(fields, 1, mine_t), mine_v, rtol=1e-5)
     assert np.allclose(at(fields, 0, PICK_T), v, rtol=1e-5)
-    assert not any(o.picks.flags.any() for o in (records[0], records[2]))
+    assert not line.of(10)["flags"].any() and not line.of(12)["flags"].any()
 
 
 def test_guide_mode_keeps_the_picks_inside_the_band():
@@ -188,29 +185,30 @@ def test_guide_mode_keeps_the_picks_inside_the_band():
     v = rms_at_picks()
     auto = v.copy()
     auto[3] *= 0.80                                  # 20 % slow: outside the band below (15 %)
-    records = [outcome(c, PICK_T, auto) for c in (10, 11, 12)]
+    line = Line([outcome(c, PICK_T, auto) for c in (10, 11, 12)])
     guide_t, guide_v = PICK_T.copy(), v.copy()       # the person's function
-    apply_edits(records, {11: (guide_t, guide_v)}, "guide", RunParams())
-    p = records[1].picks
-    assert p.t0.size == PICK_T.size                  # some picks are left: nothing added
-    g = np.interp(p.t0, guide_t, guide_v)
-    inside = (p.velocity >= g * (1 - pp.guide_below)) & (p.velocity <= g * (1 + pp.guide_above))
+    picks = apply_edits(line.cmp, line.picks, {11: (guide_t, guide_v)}, "guide", RunParams())
+    p = picks[picks["cmp"] == 11]
+    assert p.size == PICK_T.size                     # some picks are left: nothing added
+    g = np.interp(p["t0"], guide_t, guide_v)
+    inside = (p["vrms"] >= g * (1 - pp.guide_below)) & (p["vrms"] <= g * (1 + pp.guide_above))
     assert list(inside) == [True, True, True, False, True, True]
-    assert np.array_equal(p.used, inside)
-    assert np.array_equal((p.flags & OUTSIDE_GUIDE) != 0, ~inside)
+    assert np.array_equal(used_mask(p["flags"]), inside)
+    assert np.array_equal((p["flags"] & OUTSIDE_GUIDE) != 0, ~inside)
     # all of them outside the band: the person's picks are used instead
-    records = [outcome(c, PICK_T, v * 0.7) for c in (10, 11)]
-    apply_edits(records, {10: (guide_t, guide_v)}, "guide", RunParams())
-    p = records[0].picks
-    assert np.all(p.flags[(p.flags & EDITED) == 0] & OUTSIDE_GUIDE)
-    assert np.allclose(p.velocity[p.used], guide_v) and np.all(p.flags[p.used] & EDITED)
+    line = Line([outcome(c, PICK_T, v * 0.7) for c in (10, 11)])
+    picks = apply_edits(line.cmp, line.picks, {10: (guide_t, guide_v)}, "guide", RunParams())
+    p = picks[picks["cmp"] == 10]
+    used = used_mask(p["flags"])
+    assert np.all(p["flags"][(p["flags"] & EDITED) == 0] & OUTSIDE_GUIDE)
+    assert np.allclose(p["vrms"][used], guide_v) and np.all(p["flags"][used] & EDITED)
 
 
 def test_edits_for_a_cmp_not_in_the_line_are_an_error():
     v = rms_at_picks()
-    records = [outcome(c, PICK_T, v) for c in (10, 11)]
+    line = Line([outcome(c, PICK_T, v) for c in (10, 11)])
     with pytest.raises(InputError, match="99"):
-        apply_edits(records, {99: (PICK_T, v)}, "replace", RunParams())
+        apply_edits(line.cmp, line.picks, {99: (PICK_T, v)}, "replace", RunParams())
     with pytest.raises(InputError):
-        line_pass(T, records, RunParams(), edits={12: (PICK_T, v)})
-    assert not any((o.picks.flags & EXCLUDED).any() for o in records)
+        line.run(edits={12: (PICK_T, v)})
+    assert not (line.picks["flags"] & int(EXCLUDED)).any()

@@ -5,7 +5,7 @@ import numpy as np
 import pytest
 from scipy.signal import find_peaks, peak_widths
 
-from velspec.pick import _prominent_peaks
+from velspec.pick.peaks import _prominent_peaks
 
 
 def scipy_events(x, hmin, pmin, distance, tmin_index):

@@ -6,7 +6,8 @@ import itertools
 import numpy as np
 
 from velspec.params import PickParams
-from velspec.pick import _best_path, consistent_picks, pick_panel, trace_function
+from velspec.pick import consistent_picks, pick_panel, trace_function
+from velspec.pick.tracing import _best_path
 
 
 def test_best_path_matches_exhaustive_search(rng):
@@ -69,9 +70,9 @@ def test_picks_sit_on_isolated_events():
     for t, v in events:
         panel += (0.9 * np.exp(-0.5 * (((vel[:, None] - v) / 80.0) ** 2 + ((t0[None, :] - t) / 0.02) ** 2))
                   ).astype(np.float32)
-    res = pick_panel(panel, vel, t0, PickParams())
-    assert len(res.t0) == 3
-    for (t, v), pt, pv in zip(events, res.t0, res.velocity):
+    res, path = pick_panel(panel, vel, t0, PickParams())
+    assert len(res["t0"]) == 3
+    for (t, v), pt, pv in zip(events, res["t0"], res["vrms"]):
         assert abs(pt - t) <= 0.004 and abs(pv - v) < 0.25 * (vel[1] - vel[0])
 
 

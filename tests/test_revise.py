@@ -11,13 +11,14 @@ import shutil
 import h5py
 import numpy as np
 import pytest
-
 from clitools import assert_user_error, no_output, run
 
 from velspec.cli import main
+from velspec.flags import EXCLUDED, Flag
 from velspec.params import PickParams
-from velspec.pick import EDITED, EXCLUDED, OUTSIDE_GUIDE, REPLACED
 from velspec.synth import LineSpec, make_line
+
+EDITED, OUTSIDE_GUIDE, REPLACED = int(Flag.edited), int(Flag.outside_guide), int(Flag.replaced)
 
 HEADER = ["cmp", "t0_s", "vrms_m_s", "sigma_m_s", "coherence", "flags", "used"]
 

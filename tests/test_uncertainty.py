@@ -6,11 +6,11 @@ import dataclasses
 
 import numpy as np
 import pytest
+from handmade import Line, outcome
 
 from velspec.interval import dix_sigma
 from velspec.params import RunParams
-from velspec.pick import PickResult
-from velspec.pipeline import CmpOutcome, line_pass, run_line
+from velspec.pipeline import run_line
 from velspec.synth import demo_spec, make_line
 
 SEED = 5          # not one of the seeds the picker's constants were tuned on (3, 7, 9, 11)
@@ -74,7 +74,7 @@ def pick_errors(truth, params, result):
     err, sig = [], []
     for cmp in result.cmp:
         b = int(np.flatnonzero(truth.cmp == cmp)[0])
-        sel = (p["cmp"] == cmp) & (p["used"] == 1)
+        sel = (p["cmp"] == cmp) & result.used
         t, v, s = p["t0"][sel], p["vrms"][sel].astype(float), p["sigma"][sel].astype(float)
         for k in range(truth.t0.shape[1]):
             tk = truth.t0[b, k]
@@ -121,20 +121,11 @@ def test_run_has_a_finite_positive_vint_sigma(generated_run):
     assert result.vint_sigma.shape == result.vrms.shape == (len(result.cmp), result.t0.size)
     assert np.isfinite(result.vint_sigma).all()
     assert (result.vint_sigma > 0).all()
-    used = result.picks["used"] == 1
+    used = result.used
     assert np.isfinite(result.picks["vint_sigma"][used]).all()
 
 
 # -- thin intervals are less certain -------------------------------------------------------
-
-def outcome(cmp, t0, v, sigma):
-    n = len(t0)
-    t = np.arange(1, 751) * 0.004
-    picks = PickResult(t0=np.asarray(t0, float), velocity=np.asarray(v, np.float32),
-                       coherence=np.full(n, 0.8, np.float32), sigma=np.full(n, sigma, np.float32),
-                       flags=np.zeros(n, np.uint16), path=np.interp(t, t0, v).astype(np.float32))
-    return CmpOutcome(position=cmp, cmp=cmp, live=48, dropped_nan=0, dropped_dead=0, picks=picks)
-
 
 def test_thin_interval_has_larger_vint_sigma():
     # Same picks' sigma (20 m/s), same interval velocity (2600 m/s) below a pick at 1.0 s /
@@ -151,10 +142,10 @@ def test_thin_interval_has_larger_vint_sigma():
         return np.hypot(2 * t1 * v1 * s, 2 * t2 * second(t2) * s) / ((t2 - t1) * 2 * vi)
 
     records = [outcome(1, [t1, 1.1], [v1, second(1.1)], s), outcome(2, [t1, 1.4], [v1, second(1.4)], s)]
-    fields = line_pass(t, records, RunParams())
+    fields = Line(records, t=t).run()
     inside = [np.searchsorted(t, 1.05), np.searchsorted(t, 1.2)]
-    thin, thick = fields["vint_sigma"][0, inside[0]], fields["vint_sigma"][1, inside[1]]
-    assert np.allclose(fields["vint"][0, inside[0]], vi, rtol=1e-4)
-    assert np.allclose(fields["vint"][1, inside[1]], vi, rtol=1e-4)
+    thin, thick = fields.vint_sigma[0, inside[0]], fields.vint_sigma[1, inside[1]]
+    assert np.allclose(fields.vint[0, inside[0]], vi, rtol=1e-4)
+    assert np.allclose(fields.vint[1, inside[1]], vi, rtol=1e-4)
     assert thin > 2.5 * thick
     assert np.isclose(thin, expected(1.1), rtol=1e-3) and np.isclose(thick, expected(1.4), rtol=1e-3)

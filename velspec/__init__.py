@@ -1,9 +1,61 @@
 """velspec: first-pass velocity analysis of prestack 2D seismic lines on the CPU.
 
-The data flow is read (``velspec.io``) -> scan (``velspec.scan``) -> pick (``velspec.pick``)
--> interval (``velspec.interval``) -> write (``velspec.io.result``); ``velspec.pipeline``
-strings the stages together and ``velspec.cli`` is the thin command line around it.
+Every command is one call here::
+
+    import velspec
+
+    result = velspec.run_line("line.sgy", {"scan": {"nvel": 160}})   # velspec run
+    velspec.write_result("line.h5", result)
+    velspec.write_picks("picks.csv", result)                         # velspec picks
+    revised = velspec.revise_result("line.h5", edits="edits.csv")     # velspec revise
+    check = velspec.crosscheck_line("line.sgy", result)              # t^2-x^2 cross-check
+
+The data flow is read (``velspec.io``) -> scan (``velspec.scan``) -> pick (``velspec.pick``) ->
+line pass and interval velocities (``velspec.linepass``, ``velspec.interval``) -> write
+(``velspec.io.hdf5``); ``velspec.pipeline`` strings the stages together. The result of every
+stage and command is one :class:`LineAnalysis`. Names are loaded on first use, so
+``import velspec`` stays quick.
 """
 
+from __future__ import annotations
+
+import importlib
+
 __version__ = "0.1.0"
-FORMAT_VERSION = 1
+
+_PUBLIC = {
+    "run_line": "velspec.pipeline",
+    "revise_result": "velspec.pipeline",
+    "read_result": "velspec.io.hdf5",
+    "write_result": "velspec.io.hdf5",
+    "write_picks": "velspec.io.picks_csv",
+    "read_picks": "velspec.io.picks_csv",
+    "crosscheck_line": "velspec.crosscheck",
+    "tx2_velocity": "velspec.crosscheck",
+    "scan_gather": "velspec.scan",
+    "velocity_axis": "velspec.scan",
+    "pick_panel": "velspec.pick",
+    "survey_line": "velspec.inspect",
+    "run_demo": "velspec.demo",
+    "RunParams": "velspec.params",
+    "LineAnalysis": "velspec.result",
+    "PICK_DTYPE": "velspec.result",
+    "Flag": "velspec.flags",
+    "VelspecError": "velspec.errors",
+    "CAUTION": "velspec.caution",
+    "FORMAT_VERSION": "velspec.io.hdf5",
+}
+
+__all__ = sorted(_PUBLIC) + ["__version__"]
+
+
+def __getattr__(name: str):
+    if name in _PUBLIC:
+        value = getattr(importlib.import_module(_PUBLIC[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'velspec' has no attribute {name!r}")
+
+
+def __dir__():
+    return __all__

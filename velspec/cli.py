@@ -13,12 +13,10 @@ import warnings
 from pathlib import Path
 
 from . import __version__
+from .caution import CAUTION
 from .errors import ParameterError, VelspecError
 
 EXIT_OK, EXIT_DIFFERENT, EXIT_USAGE = 0, 1, 2
-
-CAUTION = ("velspec gives a first-pass velocity field: qualified people must review it before it is used "
-           "for depth conversion or well planning; local regulations and licensed practice prevail.")
 
 
 class UsageError(VelspecError):
@@ -168,7 +166,7 @@ def _progress(quiet: bool, label: str):
 
 
 def _cmd_run(args) -> int:
-    from .io.result import write_result
+    from .io.hdf5 import write_result
     from .pipeline import run_line
 
     out = Path(args.out)
@@ -177,59 +175,39 @@ def _cmd_run(args) -> int:
         raise UsageError(f"{args.line}: no such file")
     if not Path(args.line).is_file():
         raise UsageError(f"{args.line} is not a file; give the SEG-Y file of the line")
-    params = _run_params(args)
-    result = run_line(args.line, params, progress_factory=_progress(args.quiet, "scanning"))
+    result = run_line(args.line, _run_params(args), progress=_progress(args.quiet, "scanning"))
     for message in result.warnings:
         print(f"velspec: warning: {message}", file=sys.stderr)
     write_result(out, result, force=args.force)
     if not args.quiet:
-        used = int(result.picks["used"].sum())
-        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {used} picks used of {len(result.picks['t0'])})",
-              file=sys.stderr)
+        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {int(result.used.sum())} picks used "
+              f"of {result.picks.size})", file=sys.stderr)
     return EXIT_OK
 
 
 def _cmd_revise(args) -> int:
-    import dataclasses
-
-    from .io.picks_csv import read_functions
-    from .io.result import read_result, write_result
-    from .params import RunParams, load_toml
+    from .io.hdf5 import write_result
     from .pipeline import revise_result
 
     out = Path(args.out)
     _check_output_file(out, args.force)
     if Path(args.result).resolve() == out.resolve():
         raise UsageError("--out must differ from the result being revised (inputs are never modified)")
-    stored = read_result(args.result)
-    try:
-        params = RunParams.from_dict(stored["attrs"]["parameters"])
-    except (KeyError, TypeError, ParameterError) as exc:
-        raise UsageError(f"{args.result}: its run parameters cannot be read by this velspec ({exc}); "
-                         "rerun velspec run") from None
-    if args.config:
-        changed = load_toml(args.config)
-        params = dataclasses.replace(params, pick=changed.pick, interval=changed.interval)
-    edits = read_functions(args.picks, need_cmp=True) if args.picks else None
-    params = params.with_overrides(pick__edits=args.picks or "", pick__edit_mode=args.edit_mode).validate()
-    result = revise_result(stored, params, edits=edits, source=str(args.result))
+    result = revise_result(args.result, edits=args.picks, edit_mode=args.edit_mode, params=args.config)
     write_result(out, result, force=args.force)
     if not args.quiet:
-        used = int(result.picks["used"].sum())
-        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {used} picks used, "
+        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {int(result.used.sum())} picks used, "
               f"{result.attrs['edited_cmps']} CMP(s) edited)", file=sys.stderr)
     return EXIT_OK
 
 
 def _cmd_picks(args) -> int:
-    from .io.picks_csv import write_picks_csv
-    from .io.result import read_result
+    from .io.hdf5 import read_result
+    from .io.picks_csv import write_picks
 
     out = Path(args.out)
     _check_output_file(out, args.force)
-    stored = read_result(args.result)
-    picks = {k.split("/", 1)[1]: v for k, v in stored.items() if k.startswith("picks/")}
-    write_picks_csv(out, picks, force=args.force)
+    write_picks(out, read_result(args.result), force=args.force)
     return EXIT_OK
 
 
@@ -240,19 +218,17 @@ def _cmd_demo(args) -> int:
     out = Path(args.out)
     if out.exists() and not args.force:
         raise UsageError(f"{out} exists; use --force to replace it or --out to choose another folder")
-    summary = run_demo(out, threads=args.threads or 0, force=args.force,
-                       progress_factory=_progress(args.quiet, "demo"))
-    print(summary)
+    print(run_demo(out, threads=args.threads or 0, force=args.force, progress=_progress(args.quiet, "demo")))
     return EXIT_OK
 
 
 def _cmd_inspect(args) -> int:
-    from .inspect import survey
+    from .inspect import survey_line
     from .params import RunParams, load_toml
 
     params = load_toml(args.config) if args.config else RunParams()
     params.read.validate()
-    print(survey(args.line, params.read))
+    print(survey_line(args.line, params.read))
     return EXIT_OK
 
 

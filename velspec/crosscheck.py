@@ -17,7 +17,6 @@ Green, C. H., 1938, Velocity determinations by means of reflection profiles: Geo
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -301,28 +300,23 @@ def select_isolated(cmp: np.ndarray, t0: np.ndarray, coherence: np.ndarray, min_
     return isolated & (coherence >= min_coherence)
 
 
-def _pick_arrays(picks) -> tuple[np.ndarray, ...]:
-    """(cmp, t0, vrms, coherence) from a mapping with those keys or with ``picks/`` in front."""
-    if not isinstance(picks, Mapping):
-        raise ValueError("picks must be a mapping with arrays 'cmp', 't0', 'vrms' and 'coherence'")
-    prefix = "picks/" if "picks/cmp" in picks else ""
-    try:
-        cols = [np.asarray(picks[prefix + k]) for k in ("cmp", "t0", "vrms", "coherence")]
-    except KeyError as err:
-        raise ValueError(f"picks lack the array {err.args[0]!r}; need cmp, t0, vrms and coherence") from None
-    if len({c.shape for c in cols}) != 1 or cols[0].ndim != 1:
-        raise ValueError("picks arrays cmp, t0, vrms and coherence must be 1-D and of one length")
-    out = [cols[0].astype(np.int64), cols[1].astype(np.float64), cols[2].astype(np.float64),
-           cols[3].astype(np.float64)]
-    if prefix + "used" in picks:
-        # likely multiples and rejected picks are in the result too, flagged: check only the used
-        used = np.asarray(picks[prefix + "used"]).astype(bool)
-        out = [c[used] for c in out]
-    return tuple(out)
+def _pick_columns(picks) -> tuple[np.ndarray, ...]:
+    """(cmp, t0, vrms, coherence) of the used picks of a result or a pick table."""
+    from .flags import used_mask
+
+    table = getattr(picks, "picks", picks)
+    names = getattr(getattr(table, "dtype", None), "names", None) or ()
+    if not all(k in names for k in ("cmp", "t0", "vrms", "coherence", "flags")):
+        raise ValueError("picks must be a LineAnalysis or its pick table (velspec.result.PICK_DTYPE)")
+    # likely multiples and rejected picks are in the table too, flagged: check only the used
+    table = table[used_mask(table["flags"])]
+    return (table["cmp"].astype(np.int64), table["t0"].astype(np.float64), table["vrms"].astype(np.float64),
+            table["coherence"].astype(np.float64))
 
 
-def crosscheck_line(line_path: str | Path, picks, stretch_limit: float, read_params: ReadParams | None = None,
-                    *, min_coherence: float = 0.5, min_gap: float = 0.15, **fit_options) -> LineCrosscheck:
+def crosscheck_line(line_path: str | Path, picks, stretch_limit: float | None = None,
+                    read_params: ReadParams | None = None, *, min_coherence: float = 0.5, min_gap: float = 0.15,
+                    **fit_options) -> LineCrosscheck:
     """The t^2-x^2 velocity of every strong, isolated coherence pick of a line.
 
     The line is read one CMP gather at a time, only the CMPs that hold a selected pick.
@@ -331,14 +325,14 @@ def crosscheck_line(line_path: str | Path, picks, stretch_limit: float, read_par
     ----------
     line_path : str or Path
         The prestack SEG-Y line the picks were made on.
-    picks : mapping
-        Arrays ``cmp``, ``t0`` (s), ``vrms`` (m/s) and ``coherence`` of a run, as in
-        ``LineResult.picks`` (with ``used``, only the used picks count); the flat dict of :func:`velspec.io.result.read_result`, with
-        ``picks/cmp`` style keys, is accepted too.
-    stretch_limit : float
-        The run's stretch limit (``RunParams.scan.stretch_limit``).
+    picks : LineAnalysis or pick table
+        A result of ``velspec.run_line`` (or read from its file), or its pick table; only the
+        used picks count.
+    stretch_limit : float, optional
+        The run's stretch limit; default the result's own (``scan.stretch_limit``), or 0.5
+        for a bare pick table.
     read_params : ReadParams, optional
-        The run's read parameters (``RunParams.read``); default ``ReadParams()``.
+        The run's read parameters; default the result's own, or ``ReadParams()``.
     min_coherence, min_gap : float
         Selection of strong, isolated picks, see :func:`select_isolated`.
     **fit_options
@@ -361,7 +355,12 @@ def crosscheck_line(line_path: str | Path, picks, stretch_limit: float, read_par
     Green, C. H., 1938, Velocity determinations by means of reflection profiles: Geophysics 3,
     295-305.
     """
-    cmp, t0, vrms, coh = _pick_arrays(picks)
+    if hasattr(picks, "params"):
+        run = picks.params
+        stretch_limit = run.scan.stretch_limit if stretch_limit is None else stretch_limit
+        read_params = run.read if read_params is None else read_params
+    stretch_limit = 0.5 if stretch_limit is None else stretch_limit
+    cmp, t0, vrms, coh = _pick_columns(picks)
     sel = np.flatnonzero(select_isolated(cmp, t0, coh, min_coherence, min_gap))
     sel = sel[np.lexsort((t0[sel], cmp[sel]))]
     vtx = np.full(sel.size, np.nan)

@@ -8,42 +8,54 @@ from pathlib import Path
 
 import numpy as np
 
-from .cli import CAUTION
-from .io.result import read_result, write_result
+from .caution import CAUTION
+from .errors import InputError
+from .io.hdf5 import write_result
 from .params import RunParams
 from .pipeline import run_line
 from .qc import coherence_panel_png
+from .result import LineAnalysis
 from .synth import demo_spec, make_line
 
 
-def run_demo(out: str | Path, threads: int = 0, force: bool = False, progress_factory=None) -> str:
+def run_demo(out: str | Path = "velspec-demo", *, threads: int = 0, force: bool = False,
+             progress=None) -> str:
     """Build the demo folder ``out`` (line, result, picture) and return a short summary.
 
     Everything is made in ``OUT.partial`` and renamed into place at the end, so an interrupted
     demo leaves no half-made folder behind.
+
+    Parameters
+    ----------
+    out : str or Path
+        Folder to create.
+    threads : int
+        Kernel threads, 0 for all cores.
+    force : bool
+        Replace an existing folder.
+    progress : callable, optional
+        As for :func:`velspec.run_line`.
     """
     out = Path(out)
+    if out.exists() and not force:
+        raise InputError(f"{out} exists; use --force to replace it or --out to choose another folder")
     tmp = out.with_name(out.name + ".partial")
     if tmp.exists():
         shutil.rmtree(tmp)
     tmp.mkdir(parents=True)
     try:
-        spec = demo_spec()
         line_path = tmp / "demo_line.sgy"
-        truth = make_line(line_path, spec)
+        truth = make_line(line_path, demo_spec())
         params = RunParams(threads=threads).validate()
-        result = run_line(line_path, params, progress_factory=progress_factory)
+        result = run_line(line_path, params, progress=progress)
         write_result(tmp / "result.h5", result)
-        stored = read_result(tmp / "result.h5")
-        kept = stored["spectra/cmp"]
+        kept = result.spectra.cmp
         cmp = int(kept[len(kept) // 2])
         row = int(np.flatnonzero(np.asarray(truth.cmp) == cmp)[0])
-        picture = coherence_panel_png(stored, cmp, tmp / f"cmp_{cmp}_coherence.png",
+        picture = coherence_panel_png(result, cmp, tmp / f"cmp_{cmp}_coherence.png",
                                       truth=(truth.t0[row], truth.vrms[row]))
-        summary = _summary(stored, truth, cmp, params.scan.stretch_limit)
+        summary = _summary(result, truth, cmp, params.scan.stretch_limit)
         if out.exists():
-            if not force:
-                raise FileExistsError(out)
             shutil.rmtree(out) if out.is_dir() else out.unlink()
         os.replace(tmp, out)
     except BaseException:
@@ -53,16 +65,16 @@ def run_demo(out: str | Path, threads: int = 0, force: bool = False, progress_fa
     return f"{summary}\nwrote:\n{files}\n{CAUTION}"
 
 
-def _summary(result: dict, truth, cmp: int, stretch_limit: float) -> str:
-    row = int(np.flatnonzero(result["cmp"] == cmp)[0])
+def _summary(result: LineAnalysis, truth, cmp: int, stretch_limit: float) -> str:
+    row = result.row(cmp)
     trow = int(np.flatnonzero(np.asarray(truth.cmp) == cmp)[0])
-    t0, vrms = result["t0"], result["vrms"][row]
+    t0, vrms = result.t0, result.vrms[row]
     # The exact answer for a picker: the best-fit hyperbola of the ray-traced times over the
     # offsets that pass the run's stretch mute (the RMS velocity is its short-spread limit).
     vstack, _ = truth.stacking_velocity(stretch_limit=stretch_limit)
-    used = result["picks/used"].astype(bool)
-    quality = np.bincount(result["qc/quality"], minlength=3)
-    lines = [f"velspec demo: {len(result['cmp'])} CMPs analysed, {int(used.sum())} picks used, "
+    used = result.used
+    quality = np.bincount(result.qc["quality"], minlength=3)
+    lines = [f"velspec demo: {len(result.cmp)} CMPs analysed, {int(used.sum())} picks used, "
              f"{int((~used).sum())} left out or flagged as likely multiples; "
              f"CMP quality good/fair/poor {quality[0]}/{quality[1]}/{quality[2]}",
              f"CMP {cmp}: picked stacking velocity against the model (m/s)",

@@ -11,8 +11,19 @@ from .io.segy import SegyLine
 from .params import ReadParams
 
 
-def survey(path: str | Path, params: ReadParams | None = None) -> str:
-    """Text report: traces, CMP range, fold, offsets, sampling, byte positions, warnings."""
+def survey_line(path: str | Path, params: ReadParams | None = None) -> str:
+    """A header survey of a line before a long run (``velspec inspect``), as text.
+
+    Traces, CMP range, fold, offsets, sampling, the byte positions used, and warnings for
+    anything odd (dead traces, thin CMPs, gaps in the CMP numbers).
+
+    Parameters
+    ----------
+    path : str or Path
+        Prestack SEG-Y line.
+    params : ReadParams, optional
+        Header byte positions and binning (default SEG-Y rev 1 / rev 2.0 positions).
+    """
     params = params or ReadParams()
     with SegyLine(path, params) as line:
         ix = line.index

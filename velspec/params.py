@@ -327,7 +327,7 @@ class RunParams:
     block: int = 16
     keep_spectra: int = 5
 
-    def validate(self) -> "RunParams":
+    def validate(self) -> RunParams:
         self.read.validate()
         self.scan.validate()
         self.pick.validate()
@@ -344,7 +344,7 @@ class RunParams:
         return json.dumps(self.to_dict(), sort_keys=True)
 
     @classmethod
-    def from_dict(cls, data: dict) -> "RunParams":
+    def from_dict(cls, data: dict) -> RunParams:
         """Build from a nested mapping (TOML or JSON); unknown keys are errors, not ignored."""
         data = dict(data)
         stages = {"read": ReadParams, "scan": ScanParams, "pick": PickParams, "interval": IntervalParams}
@@ -357,7 +357,7 @@ class RunParams:
         kwargs.update(_known(cls, data, "top level"))
         return cls(**kwargs)
 
-    def with_overrides(self, **flat) -> "RunParams":
+    def with_overrides(self, **flat) -> RunParams:
         """Return a copy with ``stage__name=value`` or top-level ``name=value`` overrides."""
         out = self
         for key, value in flat.items():

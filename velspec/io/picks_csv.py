@@ -7,8 +7,8 @@ One header line names the columns; lines starting with ``#`` are comments. Colum
 - ``vrms_m_s`` (stacking velocity, m/s),
 
 and any others (``sigma_m_s``, ``coherence``, ``flags``, ``used`` as written by
-:func:`write_picks_csv`), which are otherwise ignored, except that a row whose ``used`` is 0 is skipped:
-a file written by :func:`write_picks_csv` can be given back as it is, and its likely multiples
+:func:`write_picks`), which are otherwise ignored, except that a row whose ``used`` is 0 is skipped:
+a file written by :func:`write_picks` can be given back as it is, and its likely multiples
 and rejected picks stay out unless a person sets ``used`` to 1. Times within one CMP must
 increase; rows may come in any CMP order.
 """
@@ -122,31 +122,46 @@ def function_on_axis(functions: dict, cmp: int, t0: np.ndarray) -> np.ndarray | 
     return (1 - w) * np.interp(t0, *functions[a]) + w * np.interp(t0, *functions[b])
 
 
-def write_picks_csv(path: str | Path, picks: dict[str, np.ndarray], force: bool = False) -> Path:
-    """Write picks (the ``/picks`` arrays of a result) as CSV, atomically.
+def write_picks(path: str | Path, picks, force: bool = False) -> Path:
+    """Write the picks of a result as CSV, atomically (``velspec picks``).
 
     Columns ``cmp,t0_s,vrms_m_s,sigma_m_s,coherence,flags,used``: a person may edit, delete or
     add rows and give the file back (:func:`read_functions`); only the first three are needed.
+
+    Parameters
+    ----------
+    path : str or Path
+        The CSV file to write.
+    picks : LineAnalysis or pick table
+        A result, or its pick table (:data:`velspec.result.PICK_DTYPE`).
+    force : bool
+        Replace an existing file.
     """
+    from ..flags import used_mask
+
+    table = getattr(picks, "picks", picks)
     path = Path(path)
     if path.exists() and not force:
         raise InputError(f"{path} exists; use --force to overwrite it")
     tmp = path.with_name(path.name + ".partial")
-    n = len(picks["t0"])
-    sigma = picks.get("sigma", np.full(n, np.nan))
-    flags = picks.get("flags", np.zeros(n, dtype=np.uint16))
-    used = picks.get("used", np.ones(n, dtype=np.uint8))
+    used = used_mask(table["flags"]).astype(np.uint8)
     try:
         with open(tmp, "w", newline="", encoding="utf-8") as fh:
             fh.write("# velspec picks: stacking velocity (m/s) at zero-offset time (s) per CMP; "
                      "first-pass values, to be reviewed by qualified people\n")
             w = csv.writer(fh)
             w.writerow(["cmp", "t0_s", "vrms_m_s", "sigma_m_s", "coherence", "flags", "used"])
-            for i in range(n):
-                w.writerow([int(picks["cmp"][i]), f"{picks['t0'][i]:.6f}", f"{picks['vrms'][i]:.2f}",
-                            f"{sigma[i]:.2f}", f"{picks['coherence'][i]:.4f}", int(flags[i]), int(used[i])])
+            for row, u in zip(table, used):
+                w.writerow([int(row["cmp"]), f"{row['t0']:.6f}", f"{row['vrms']:.2f}", f"{row['sigma']:.2f}",
+                            f"{row['coherence']:.4f}", int(row["flags"]), int(u)])
         os.replace(tmp, path)
     except BaseException:
         tmp.unlink(missing_ok=True)
         raise
     return path
+
+
+def read_picks(path: str | Path) -> dict[int, tuple[np.ndarray, np.ndarray]]:
+    """A person's picks for chosen CMPs: ``{cmp: (t0 s, vrms m/s)}`` from a CSV with a ``cmp``
+    column (such as an edited output of :func:`write_picks`; rows with ``used`` = 0 skipped)."""
+    return read_functions(path, need_cmp=True)

@@ -356,7 +356,7 @@ class SegyLine:
             os.close(self._fd)
             self._fd = None
 
-    def __enter__(self) -> "SegyLine":
+    def __enter__(self) -> SegyLine:
         return self
 
     def __exit__(self, *exc) -> None:

@@ -26,6 +26,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from velspec.flags import Flag
+
 
 @dataclass
 class Score:
@@ -48,17 +50,10 @@ class Score:
                 "used_picks": self.used_picks, "flagged_multiples": self.flagged_multiples}
 
 
-def _get(result, name):
-    if isinstance(result, dict):
-        return result[name]
-    group, _, key = name.partition("/")
-    return getattr(result, group)[key] if key else getattr(result, group)
-
-
 def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: float = 0.150,
                min_reflectivity: float = 1e-3, multiple_tolerance: tuple[float, float] = (0.024, 0.03),
                multiples=None) -> Score:
-    """Score ``result`` (a LineResult or a read_result dict) against ``truth`` (a LineTruth).
+    """Score ``result`` (a :class:`velspec.LineAnalysis`) against ``truth`` (a LineTruth).
 
     Parameters
     ----------
@@ -76,10 +71,7 @@ def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: fl
         The modelled multiples (``truth.multiple_events(...)``: ``t0`` and ``vstack``, (ncmp, E)).
     """
     vstack, _ = truth.stacking_velocity(stretch_limit=stretch_limit)
-    t_axis = np.asarray(_get(result, "t0"))
-    cmps = np.asarray(_get(result, "cmp"))
-    vrms_f = np.asarray(_get(result, "vrms"))
-    vint_f = np.asarray(_get(result, "vint"))
+    t_axis, cmps, vrms_f, vint_f = result.t0, result.cmp, result.vrms, result.vint
     vrms_err, vint_err = [], []
     for row, cmp in enumerate(cmps):
         b = int(np.flatnonzero(truth.cmp == cmp)[0])
@@ -107,12 +99,9 @@ def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: fl
     vrms_err = np.concatenate(vrms_err) if vrms_err else np.zeros(0)
     vint_err = np.concatenate([np.asarray(v) for v in vint_err]) if vint_err else np.zeros(0)
 
-    pick_cmp = np.asarray(_get(result, "picks/cmp"))
-    pick_t = np.asarray(_get(result, "picks/t0"))
-    pick_v = np.asarray(_get(result, "picks/vrms"))
-    flags = np.asarray(_get(result, "picks/flags"))
-    used = np.asarray(_get(result, "picks/used")).astype(bool)
-    from velspec.pick import MULTIPLE
+    picks = result.picks
+    pick_cmp, pick_t, pick_v, flags = picks["cmp"], picks["t0"], picks["vrms"], picks["flags"]
+    used = result.used
 
     on_multiple = 0
     if multiples is not None:
@@ -126,4 +115,4 @@ def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: fl
             if near_m.any() and not near_p.any():
                 on_multiple += 1
     return Score(vrms_errors=vrms_err, vint_errors=vint_err, picks_on_multiples=on_multiple,
-                 used_picks=int(used.sum()), flagged_multiples=int(((flags & MULTIPLE) != 0).sum()))
+                 used_picks=int(used.sum()), flagged_multiples=int(((flags & int(Flag.likely_multiple)) != 0).sum()))

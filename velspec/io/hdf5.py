@@ -1,0 +1,235 @@
+"""The result file (HDF5, format_version 1): a :class:`~velspec.result.LineAnalysis` written
+atomically and read back.
+
+The layout is the outside contract of ``../shared/design/interface.md`` (also in the README):
+root attributes, ``/cmp``, ``/cmp_x``, ``/cmp_y``, ``/t0``, ``/vrms``, ``/vint``, ``/picks/*``,
+and the ``/qc``, ``/spectra`` and ``/depth`` groups. Every dataset has a ``units`` attribute, and
+the axis datasets (``/cmp``, ``/t0``, ``/spectra/velocity``, ``/depth/z``) are attached to the
+fields as HDF5 dimension scales, so any HDF5 tool shows labelled axes. The file is written as
+``NAME.partial`` beside the output and renamed into place only when complete, so a reader never
+sees half a result. Files written before the axes were attached read the same way.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from ..errors import InputError
+from ..flags import bit_names
+from ..result import PICK_COLUMNS, DepthFields, LineAnalysis, Spectra, empty_picks
+
+FORMAT_VERSION = 1
+
+# units and one-line meaning of every dataset that is not a pick column
+_FIELDS = {
+    "cmp": ("1", "numbers of the CMPs analysed, ascending"),
+    "cmp_x": ("m", "CMP x coordinate"),
+    "cmp_y": ("m", "CMP y coordinate"),
+    "t0": ("s", "zero-offset two-way time from the traces' time zero"),
+    "vrms": ("m/s", "stacking velocity: best-fit hyperbola over the offsets used; t0*vrms^2 linear between picks"),
+    "vint": ("m/s", "constrained Dix interval velocity in time, inside the physical range"),
+    "vint_sigma": ("m/s", "one-standard-deviation uncertainty of vint, propagated from the picks' sigma through Dix"),
+    "eta": ("1", "anellipticity of the nonhyperbolic moveout (Alkhalifah & Tsvankin, 1995), linear between picks"),
+    "picks/used": ("1", "1 where the pick entered the velocity fields"),
+    "qc/quality": ("1", "per CMP: 0 good, 1 fair, 2 poor (README: quality per CMP)"),
+    "qc/live_traces": ("1", "traces used"),
+    "qc/nan_traces": ("1", "traces left out because they held NaN or infinite samples"),
+    "qc/dead_traces": ("1", "traces left out because they were flagged dead or were all zero"),
+    "qc/no_picks": ("1", "1 where no pick passed the thresholds and the traced function was used"),
+    "qc/forced_count": ("1", "pick intervals whose interval velocity the bounds changed"),
+    "qc/vint_forced": ("1", "1 where the physical bounds changed vint by more than 1 m/s"),
+    "qc/vint_raw": ("m/s", "unconstrained Dix interval velocity, signed square root (negative: imaginary)"),
+    "qc/path": ("m/s", "traced dynamic-programming velocity function on every t0 sample"),
+    "qc/skipped_cmp": ("1", "CMPs left out (fewer than 2 live traces)"),
+    "qc/skipped_nan_traces": ("1", "traces with NaN samples in the CMPs left out"),
+    "spectra/cmp": ("1", "CMP of each kept coherence panel"),
+    "spectra/velocity": ("m/s", "trial stacking velocities of the kept panels"),
+    "spectra/coherence": ("1", "kept coherence panels, as picked (after the smoothing along the line)"),
+    "depth/z": ("m", "depth below the datum of the input times"),
+    "depth/t0": ("s", "two-way time at each depth"),
+    "depth/vint": ("m/s", "interval velocity at each depth"),
+}
+_PICKS = {f"picks/{name}": (units, meaning) for name, _, units, meaning in PICK_COLUMNS}
+
+# which axis datasets label the dimensions of a dataset, by its shape's kind
+_AXES_CMP_T0 = ("cmp", "t0")
+
+
+def partial_path(path: str | Path) -> Path:
+    """Where ``path`` is written before it is complete: ``PATH.partial`` beside it."""
+    path = Path(path)
+    return path.with_name(path.name + ".partial")
+
+
+def write_result(path: str | Path, result: LineAnalysis, force: bool = False) -> Path:
+    """Write a result to ``path`` atomically (``PATH.partial``, then renamed).
+
+    Parameters
+    ----------
+    path : str or Path
+        The HDF5 file to write.
+    result : LineAnalysis
+        What to write.
+    force : bool
+        Replace an existing file.
+
+    Raises
+    ------
+    InputError
+        ``path`` exists and ``force`` is false.
+    """
+    path = Path(path)
+    if path.exists() and not force:
+        raise InputError(f"{path} exists; use --force to overwrite it")
+    tmp = partial_path(path)
+    try:
+        with h5py.File(tmp, "w") as h5:
+            _write(h5, result)
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return path
+
+
+def _write(h5: h5py.File, r: LineAnalysis) -> None:
+    h5.attrs["format_version"] = FORMAT_VERSION
+    for key, value in r.attrs.items():
+        if key == "format_version":
+            continue
+        h5.attrs[key] = json.dumps(value, sort_keys=True) if isinstance(value, dict) else value
+    ncmp, nt = r.vrms.shape
+    axes = {"cmp": _put(h5, "cmp", r.cmp), "t0": _put(h5, "t0", r.t0)}
+    for name in ("cmp", "t0"):
+        axes[name].make_scale(name)
+
+    def field(name, value, dims):
+        ds = _put(h5, name, value)
+        for k, axis in enumerate(dims):
+            ds.dims[k].attach_scale(axes[axis])
+            ds.dims[k].label = axis
+        return ds
+
+    for name in ("cmp_x", "cmp_y"):
+        field(name, getattr(r, name), ("cmp",))
+    for name in ("vrms", "vint", "vint_sigma"):
+        field(name, getattr(r, name), _AXES_CMP_T0)
+    if r.eta is not None:
+        field("eta", r.eta, _AXES_CMP_T0)
+
+    nonhyperbolic = r.eta is not None
+    for name, _, _, _ in PICK_COLUMNS:
+        if name == "eta" and not nonhyperbolic:
+            continue
+        ds = _put(h5, f"picks/{name}", np.ascontiguousarray(r.picks[name]))
+        if name == "flags":
+            ds.attrs["bits"] = json.dumps(bit_names())
+    _put(h5, "picks/used", r.used.astype(np.uint8))
+
+    for name, value in r.qc.items():
+        value = np.asarray(value)
+        if value.shape == (ncmp, nt):
+            field(f"qc/{name}", value, _AXES_CMP_T0)
+        elif value.shape == (ncmp,) and not name.startswith("skipped"):
+            field(f"qc/{name}", value, ("cmp",))
+        else:
+            _put(h5, f"qc/{name}", value)
+
+    if r.spectra is not None:
+        axes["spectra/cmp"] = _put(h5, "spectra/cmp", r.spectra.cmp)
+        axes["spectra/velocity"] = _put(h5, "spectra/velocity", r.spectra.velocity)
+        axes["spectra/cmp"].make_scale("cmp of the kept panel")
+        axes["spectra/velocity"].make_scale("trial stacking velocity")
+        field("spectra/coherence", r.spectra.coherence, ("spectra/cmp", "spectra/velocity", "t0"))
+    if r.depth is not None:
+        axes["depth/z"] = _put(h5, "depth/z", r.depth.z)
+        axes["depth/z"].make_scale("depth")
+        for name in ("t0", "vint"):
+            field(f"depth/{name}", getattr(r.depth, name), ("cmp", "depth/z"))
+
+
+def _put(h5: h5py.File, name: str, value) -> h5py.Dataset:
+    value = np.asarray(value)
+    big = value.ndim >= 2 and value.size > 4096
+    # gzip is readable by every HDF5 tool; level 1 with byte shuffling keeps most of the gain
+    # on smooth velocity fields at a fraction of the time of higher levels.
+    ds = h5.create_dataset(name, data=value, compression="gzip" if big else None,
+                           compression_opts=1 if big else None, shuffle=big)
+    units, meaning = _FIELDS.get(name) or _PICKS.get(name) or ("1", "")
+    ds.attrs["units"] = units
+    if meaning:
+        ds.attrs["description"] = meaning
+    return ds
+
+
+def read_result(path: str | Path) -> LineAnalysis:
+    """Read a result file.
+
+    Parameters
+    ----------
+    path : str or Path
+        A file written by ``velspec run`` or ``velspec revise`` (any format_version 1 file,
+        with or without dimension scales).
+
+    Returns
+    -------
+    LineAnalysis
+
+    Raises
+    ------
+    InputError
+        No such file, not HDF5, not a velspec result, or a format version this velspec does
+        not read.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise InputError(f"{path}: no such file")
+    try:
+        h5 = h5py.File(path, "r")
+    except OSError:
+        raise InputError(f"{path}: not an HDF5 result file") from None
+    with h5:
+        attrs = {k: (v.item() if hasattr(v, "item") else v) for k, v in h5.attrs.items()}
+        if "format_version" not in attrs:
+            raise InputError(f"{path}: not a velspec result (no format_version attribute)")
+        if int(attrs["format_version"]) != FORMAT_VERSION:
+            raise InputError(f"{path}: result format_version {attrs['format_version']} is not the version "
+                             f"{FORMAT_VERSION} this velspec reads; use the velspec that wrote it")
+        for key in ("cmp", "t0", "vrms", "vint", "picks/cmp", "picks/t0", "picks/vrms"):
+            if key not in h5:
+                raise InputError(f"{path}: not a complete velspec result (no /{key})")
+        data = {}
+        h5.visititems(lambda name, obj: data.__setitem__(name, obj[()]) if isinstance(obj, h5py.Dataset) else None)
+    for key in ("parameters", "input"):
+        if isinstance(attrs.get(key), (str, bytes)):
+            attrs[key] = json.loads(attrs[key])
+    return _from_datasets(data, attrs)
+
+
+def _from_datasets(d: dict, attrs: dict) -> LineAnalysis:
+    npick = d["picks/t0"].size
+    picks = empty_picks(npick)
+    picks["sigma"] = np.nan   # stays NaN in a file from before picks had uncertainties
+    for name, dtype, _, _ in PICK_COLUMNS:
+        if f"picks/{name}" in d:
+            picks[name] = d[f"picks/{name}"].astype(dtype)
+    vrms = d["vrms"].astype(np.float32)
+    vint_sigma = d.get("vint_sigma")
+    spectra = None
+    if "spectra/coherence" in d:
+        spectra = Spectra(cmp=d["spectra/cmp"], velocity=d["spectra/velocity"], coherence=d["spectra/coherence"])
+    depth = None
+    if "depth/z" in d:
+        depth = DepthFields(z=d["depth/z"], t0=d["depth/t0"], vint=d["depth/vint"])
+    return LineAnalysis(
+        cmp=d["cmp"].astype(np.int64), cmp_x=d.get("cmp_x", np.zeros(d["cmp"].size)),
+        cmp_y=d.get("cmp_y", np.zeros(d["cmp"].size)), t0=d["t0"].astype(np.float64), vrms=vrms,
+        vint=d["vint"].astype(np.float32),
+        vint_sigma=(vint_sigma if vint_sigma is not None else np.full_like(vrms, np.nan)),
+        picks=picks, qc={k.split("/", 1)[1]: v for k, v in d.items() if k.startswith("qc/")},
+        spectra=spectra, depth=depth, eta=d.get("eta"), attrs=attrs)

@@ -1,0 +1,125 @@
+"""The generated scenarios that tests and benchmarks score the picker on, and how they are run.
+
+Each scenario is a :class:`~velspec.synth.line.LineSpec` (invented, or built from the open logs in
+``../shared/data/wells``) with, where a processor would set them before seeing the answer, its
+run parameters. :func:`run_scenario` makes the line, runs velspec on it and scores the result
+against the exact ray-traced answers (:func:`velspec.synth.score.score_line`).
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from pathlib import Path
+
+import numpy as np
+
+from velspec.flags import Flag
+from velspec.io.las import read_las
+from velspec.params import RunParams
+from velspec.synth.line import LineSpec, demo_spec, make_line, reverb_spec
+from velspec.synth.score import score_line
+from velspec.synth.wells import blocked_model_from_sonic
+
+
+def _wells() -> Path:
+    # $VELSPEC_WELLS, else ../shared/data/wells beside the checkout (found from the package when
+    # installed in place, or from the working folder, as tests and benchmarks run from the root)
+    if os.environ.get("VELSPEC_WELLS"):
+        return Path(os.environ["VELSPEC_WELLS"])
+    for base in (Path(__file__).resolve().parents[2], Path.cwd()):
+        candidate = base.parent / "shared" / "data" / "wells"
+        if candidate.is_dir():
+            return candidate
+    return Path.cwd().parent / "shared" / "data" / "wells"
+
+
+WELLS = _wells()
+"""Where the open well logs are: ``$VELSPEC_WELLS``, else ``../shared/data/wells`` beside the checkout."""
+
+
+def sonic_line_spec(las_path, water=0.0, water_velocity=1480.0, overburden_velocity=1650.0,
+                    block=0.04, ncmp=20, snr=2.0, lateral=0.02, nsamples=700, seed=11, **extra) -> LineSpec:
+    """A line over a sonic log: the log blocked to layers of ``block`` s two-way time, under
+    ``water`` m of water and an overburden of ``overburden_velocity`` down to the first sample."""
+    curves, _, _ = read_las(las_path)
+    thickness, velocity = blocked_model_from_sonic(curves["DEPT"], curves["DT"],
+                                                   overburden_velocity=overburden_velocity, min_two_way=block,
+                                                   datum_depth=water)
+    if water > 0:
+        thickness = np.concatenate(([water], thickness))
+        velocity = np.concatenate(([water_velocity], velocity))
+    return LineSpec(ncmp=ncmp, model=(thickness, velocity), snr=snr, nsamples=nsamples, seed=seed, lateral=lateral,
+                    **extra)
+
+
+def p135_spec(**kw) -> LineSpec:
+    """Short-time line over P-135: 2 ms sampling and a 40 Hz wavelet, as a shallow survey would
+    record; overburden assumed 259 m at 2800 m/s."""
+    args = dict(overburden_velocity=2800.0, block=0.04, nsamples=300, lateral=0.0, dt=0.002, peak_frequency=40.0)
+    args.update(kw)
+    return sonic_line_spec(WELLS / "P-135.las", **args)
+
+
+def p135_params() -> RunParams:
+    """Fast shallow rock: the stacking velocity rises by ~6000 (m/s)/s below the overburden, so
+    the rate limit is raised (a processor would do the same) and picks may lie 60 ms apart."""
+    return RunParams().with_overrides(pick__max_increase=8000.0, pick__min_separation=0.06).validate()
+
+
+def scenarios() -> dict:
+    """``{name: (spec, params or None)}`` of the scenarios in the README's accuracy table."""
+    out = {"demo": (demo_spec(), None), "reverb": (reverb_spec(), None)}
+    if (WELLS / "F03-02.las").exists():
+        out["f03"] = (sonic_line_spec(WELLS / "F03-02.las", water=40.0), None)
+    if (WELLS / "P-135.las").exists():
+        out["p135"] = (p135_spec(), p135_params())
+    return out
+
+
+def variants() -> dict:
+    """Robustness: the reverberant scenario under other seeds, water depths and noise (50 CMPs
+    each), and the F03-02 line at S/N 1 and with first-order multiples."""
+    from velspec.synth.line import reverb_model
+
+    out = {}
+    for seed in (1, 2, 3):
+        sp = reverb_spec()
+        sp.seed, sp.ncmp = seed, 50
+        out[f"reverb seed {seed}"] = (sp, None)
+    h, v = reverb_model()
+    for water, given in ((100.0, False), (100.0, True), (250.0, False)):
+        hh = h.copy()
+        hh[0] = water
+        sp = reverb_spec()
+        sp.model, sp.ncmp = (hh, v), 50
+        params = (RunParams().with_overrides(pick__water_bottom=2 * water / v[0], pick__water_velocity=float(v[0]))
+                  .validate() if given else None)
+        out[f"reverb water {water:.0f} m{' (water_bottom given)' if given else ''}"] = (sp, params)
+    sp = reverb_spec()
+    sp.snr, sp.ncmp = 0.5, 50
+    out["reverb S/N 0.5"] = (sp, None)
+    if (WELLS / "F03-02.las").exists():
+        out["f03 S/N 1"] = (sonic_line_spec(WELLS / "F03-02.las", water=40.0, snr=1.0), None)
+        out["f03 + first-order multiples"] = (sonic_line_spec(WELLS / "F03-02.las", water=40.0, multiples=True), None)
+    return out
+
+
+def run_scenario(name: str, spec: LineSpec, workdir: str | Path, params: RunParams | None = None) -> dict:
+    """Make the line of ``spec`` in ``workdir``, run velspec on it and score it: a summary dict
+    (:meth:`velspec.synth.score.Score.summary` plus CMPs, seconds, quality counts, outliers)."""
+    from velspec.pipeline import run_line
+
+    path = Path(workdir) / f"{name}.sgy"
+    truth = make_line(path, spec)
+    params = params or RunParams().validate()
+    start = time.perf_counter()
+    result = run_line(path, params)
+    elapsed = time.perf_counter() - start
+    multiples = truth.multiple_events(stretch_limit=params.scan.stretch_limit)
+    score = score_line(result, truth, params.scan.stretch_limit, multiples=multiples)
+    summary = score.summary()
+    summary.update(cmps=int(len(result.cmp)), seconds=round(elapsed, 2),
+                   quality_counts=np.bincount(result.qc["quality"], minlength=3).tolist(),
+                   outliers=int(((result.picks["flags"] & int(Flag.lateral_outlier)) != 0).sum()))
+    return summary
