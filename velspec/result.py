@@ -29,6 +29,8 @@ PICK_COLUMNS = (
     ("flags", np.uint16, "1", "why a pick is doubtful or left out: a sum of velspec.Flag bits"),
     ("vint_sigma", np.float32, "m/s", "uncertainty of the interval velocity ending at the pick (NaN if not used)"),
     ("eta", np.float32, "1", "anellipticity at the pick (nonhyperbolic scan only; else 0)"),
+    ("misfit", np.float32, "1",
+     "regularised field's stacking velocity at the pick minus the pick, in units of its sigma (NaN if not used)"),
 )
 PICK_DTYPE = np.dtype([(name, dtype) for name, dtype, _, _ in PICK_COLUMNS])
 """Columns of a pick table (numpy structured dtype)."""
@@ -39,6 +41,7 @@ def empty_picks(n: int = 0) -> np.ndarray:
     table = np.zeros(n, dtype=PICK_DTYPE)
     table["coherence"] = np.nan
     table["vint_sigma"] = np.nan
+    table["misfit"] = np.nan
     return table
 
 
@@ -83,6 +86,24 @@ class DepthFields:
     z: np.ndarray
     t0: np.ndarray
     vint: np.ndarray
+    vavg: np.ndarray | None = None
+
+
+@dataclass
+class RegularisedField:
+    """Interval velocity of the whole line as one bounded least-squares problem (smooth in time
+    and along the line, weighted by the picks' sigma), beside the per-CMP Dix of ``vint``.
+
+    Attributes
+    ----------
+    vint : float32 (ncmp, nt)
+        Regularised interval velocity in time, m/s, inside ``[vint_min, vint_max]``.
+    vrms : float32 (ncmp, nt)
+        The stacking velocity it predicts back, m/s.
+    """
+
+    vint: np.ndarray
+    vrms: np.ndarray
 
 
 @dataclass
@@ -111,6 +132,8 @@ class LineAnalysis:
         Kept coherence panels.
     depth : DepthFields or None
         Fields in depth.
+    regularised : RegularisedField or None
+        The line-wide regularised interval field (``/regularised``).
     eta : float32 (ncmp, nt) or None
         Anellipticity field of a nonhyperbolic scan; ``vrms`` then holds the NMO velocity.
     attrs : dict
@@ -132,6 +155,7 @@ class LineAnalysis:
     qc: dict = field(default_factory=dict)
     spectra: Spectra | None = None
     depth: DepthFields | None = None
+    regularised: RegularisedField | None = None
     eta: np.ndarray | None = None
     attrs: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)

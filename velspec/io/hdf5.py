@@ -21,7 +21,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..flags import bit_names
-from ..result import PICK_COLUMNS, DepthFields, LineAnalysis, Spectra, empty_picks
+from ..result import PICK_COLUMNS, DepthFields, LineAnalysis, RegularisedField, Spectra, empty_picks
 
 FORMAT_VERSION = 1
 
@@ -53,6 +53,9 @@ _FIELDS = {
     "depth/z": ("m", "depth below the datum of the input times"),
     "depth/t0": ("s", "two-way time at each depth"),
     "depth/vint": ("m/s", "interval velocity at each depth"),
+    "depth/vavg": ("m/s", "average velocity from the datum to each depth (depth / one-way time)"),
+    "regularised/vint": ("m/s", "line-wide regularised interval velocity in time, inside the physical range"),
+    "regularised/vrms": ("m/s", "stacking velocity the regularised interval field predicts back"),
 }
 _PICKS = {f"picks/{name}": (units, meaning) for name, _, units, meaning in PICK_COLUMNS}
 
@@ -124,7 +127,7 @@ def _write(h5: h5py.File, r: LineAnalysis) -> None:
 
     nonhyperbolic = r.eta is not None
     for name, _, _, _ in PICK_COLUMNS:
-        if name == "eta" and not nonhyperbolic:
+        if (name == "eta" and not nonhyperbolic) or (name == "misfit" and r.regularised is None):
             continue
         ds = _put(h5, f"picks/{name}", np.ascontiguousarray(r.picks[name]))
         if name == "flags":
@@ -149,8 +152,12 @@ def _write(h5: h5py.File, r: LineAnalysis) -> None:
     if r.depth is not None:
         axes["depth/z"] = _put(h5, "depth/z", r.depth.z)
         axes["depth/z"].make_scale("depth")
-        for name in ("t0", "vint"):
-            field(f"depth/{name}", getattr(r.depth, name), ("cmp", "depth/z"))
+        for name in ("t0", "vint", "vavg"):
+            if getattr(r.depth, name) is not None:
+                field(f"depth/{name}", getattr(r.depth, name), ("cmp", "depth/z"))
+    if r.regularised is not None:
+        for name in ("vint", "vrms"):
+            field(f"regularised/{name}", getattr(r.regularised, name), _AXES_CMP_T0)
 
 
 def _put(h5: h5py.File, name: str, value) -> h5py.Dataset:
@@ -225,11 +232,14 @@ def _from_datasets(d: dict, attrs: dict) -> LineAnalysis:
         spectra = Spectra(cmp=d["spectra/cmp"], velocity=d["spectra/velocity"], coherence=d["spectra/coherence"])
     depth = None
     if "depth/z" in d:
-        depth = DepthFields(z=d["depth/z"], t0=d["depth/t0"], vint=d["depth/vint"])
+        depth = DepthFields(z=d["depth/z"], t0=d["depth/t0"], vint=d["depth/vint"], vavg=d.get("depth/vavg"))
+    regularised = None
+    if "regularised/vint" in d:
+        regularised = RegularisedField(vint=d["regularised/vint"], vrms=d["regularised/vrms"])
     return LineAnalysis(
         cmp=d["cmp"].astype(np.int64), cmp_x=d.get("cmp_x", np.zeros(d["cmp"].size)),
         cmp_y=d.get("cmp_y", np.zeros(d["cmp"].size)), t0=d["t0"].astype(np.float64), vrms=vrms,
         vint=d["vint"].astype(np.float32),
         vint_sigma=(vint_sigma if vint_sigma is not None else np.full_like(vrms, np.nan)),
         picks=picks, qc={k.split("/", 1)[1]: v for k, v in d.items() if k.startswith("qc/")},
-        spectra=spectra, depth=depth, eta=d.get("eta"), attrs=attrs)
+        spectra=spectra, depth=depth, regularised=regularised, eta=d.get("eta"), attrs=attrs)
