@@ -40,6 +40,7 @@ diagnostic basics for stratigraphic traps, Geophysics 39, 770-780.
 from __future__ import annotations
 
 import numpy as np
+from numba import njit, prange
 
 __all__ = [
     "check_model",
@@ -244,50 +245,76 @@ def trace_rays(thickness, velocity, offsets, legs=2):
     v = np.asarray(velocity, dtype=np.float64)
     x = np.asarray(offsets, dtype=np.float64)
     N, _ = _crossing_table(legs, h.shape[0], h.shape[1])
-    Hs, V, r, a, vmax, hmax = _layer_tables(h, v, N)
-    X = np.abs(x)[:, None, :] * np.ones((1, N.shape[1], 1))  # (m, E, nx)
-    Hl, rl, al = (arr[..., None] for arr in (Hs, r, a))  # (m, E, i, 1)
-
-    def offset_and_slope(u):
-        # tan(theta_i) = r u / sqrt(1 + a u^2); its u-derivative is r / (1 + a u^2)^1.5
-        uu = u[:, :, None, :]
-        q = 1.0 + al * uu * uu
-        g = (Hl * rl * uu / np.sqrt(q)).sum(axis=2)
-        dg = (Hl * rl / (q * np.sqrt(q))).sum(axis=2)
-        return g, dg
-
-    # x(u) >= hmax*u (the fastest layers' share alone), so u = X / hmax brackets the root above
-    lo = np.zeros_like(X)
-    hi = X / hmax[:, :, None]
-    # start from the ray parameter of the RMS-velocity hyperbola; any start converges
-    t0 = (Hs / V).sum(axis=2)[:, :, None]
-    v2 = (Hs * V).sum(axis=2)[:, :, None] / t0
-    s0 = np.minimum(X / (np.sqrt(t0 * t0 + X * X / v2) * v2) * vmax[:, :, None], 0.99)
-    u = np.minimum(s0 / np.sqrt(1.0 - s0 * s0), hi)
-    active = X > 0
-    for _ in range(_MAX_ITER):
-        if not active.any():
-            break
-        g, dg = offset_and_slope(u)
-        res = g - X
-        done = np.abs(res) <= np.maximum(_X_TOL, 1e-14 * X)
-        active &= ~done
-        lo = np.where(res < 0, u, lo)
-        hi = np.where(res > 0, u, hi)
-        step = u - res / dg
-        # Newton from the left never overshoots a concave curve; bisect if rounding says it did
-        bad = ~((step > lo) & (step < hi))
-        new = np.where(bad, 0.5 * (lo + hi), step)
-        u = np.where(active, new, u)
-    else:
-        if active.any():
-            raise RuntimeError("ray tracing did not converge; please report the model and offsets")
-
-    uu = u[:, :, None, :]
-    cos_ratio = np.sqrt((1.0 + al * uu * uu) / (1.0 + uu * uu))  # cos(theta_i) without cancellation
-    t = (Hl / (V[..., None] * cos_ratio)).sum(axis=2)
-    p = u / np.sqrt(1.0 + u * u) / vmax[:, :, None]
+    Hs, V, r, _, vmax, hmax = _layer_tables(h, v, N)
+    X = np.ascontiguousarray(np.broadcast_to(np.abs(x)[:, None, :], (h.shape[0], N.shape[1], x.shape[1])))
+    t, p, ok = _solve_rays(np.ascontiguousarray(Hs), np.ascontiguousarray(V), np.ascontiguousarray(r),
+                           vmax, hmax, X, _X_TOL, _MAX_ITER)
+    if not ok.all():
+        raise RuntimeError("ray tracing did not converge; please report the model and offsets")
     return t, p
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def _solve_rays(Hs, V, r, vmax, hmax, X, x_tol, max_iter):
+    """Newton's method with bracketing on u = tan(theta) in the fastest layer, per (model, event,
+    offset): x(u) = sum_i H_i r_i u / sqrt(1 + a_i u^2), a_i = 1 - r_i^2, is concave in u and
+    x(u) >= hmax u, so [0, X / hmax] brackets the root; bisection wherever a Newton step would
+    leave the bracket. Only the layers an event crosses are visited."""
+    m, ne, nl = Hs.shape
+    nx = X.shape[2]
+    t = np.zeros((m, ne, nx))
+    p = np.zeros((m, ne, nx))
+    ok = np.ones((m, ne), dtype=np.bool_)
+    for k in prange(m * ne):
+        b, e = k // ne, k % ne
+        idx = np.flatnonzero(Hs[b, e] > 0)
+        H, vv, rr = Hs[b, e][idx], V[b, e][idx], r[b, e][idx]
+        aa = 1.0 - rr * rr
+        t0 = 0.0
+        hv = 0.0
+        for i in range(idx.size):
+            t0 += H[i] / vv[i]
+            hv += H[i] * vv[i]
+        v2 = hv / t0
+        for j in range(nx):
+            xj = X[b, e, j]
+            u = 0.0
+            if xj > 0:
+                lo = 0.0
+                hi = xj / hmax[b, e]
+                # start from the ray parameter of the RMS-velocity hyperbola; any start converges
+                s0 = min(xj / (np.sqrt(t0 * t0 + xj * xj / v2) * v2) * vmax[b, e], 0.99)
+                u = min(s0 / np.sqrt(1.0 - s0 * s0), hi)
+                done = False
+                for _ in range(max_iter):
+                    g = 0.0
+                    dg = 0.0
+                    for i in range(idx.size):
+                        q = 1.0 + aa[i] * u * u
+                        sq = np.sqrt(q)
+                        g += H[i] * rr[i] * u / sq
+                        dg += H[i] * rr[i] / (q * sq)
+                    res = g - xj
+                    if abs(res) <= max(x_tol, 1e-14 * xj):
+                        done = True
+                        break
+                    if res < 0:
+                        lo = u
+                    elif res > 0:
+                        hi = u
+                    step = u - res / dg
+                    # Newton from the left never overshoots a concave curve; bisect if rounding says it did
+                    u = step if lo < step < hi else 0.5 * (lo + hi)
+                if not done:
+                    ok[b, e] = False
+            tt = 0.0
+            for i in range(idx.size):
+                # cos(theta_i) without cancellation
+                cos_ratio = np.sqrt((1.0 + aa[i] * u * u) / (1.0 + u * u))
+                tt += H[i] / (vv[i] * cos_ratio)
+            t[b, e, j] = tt
+            p[b, e, j] = u / np.sqrt(1.0 + u * u) / vmax[b, e]
+    return t, p, ok
 
 
 def _single(thickness, velocity, offsets, legs):

@@ -53,6 +53,57 @@ def sonic_line_spec(las_path, water=0.0, water_velocity=1480.0, overburden_veloc
                     **extra)
 
 
+def gradient_layers(top: float, bottom: float, v_top: float, v_bottom: float, step: float = 20.0):
+    """Layers of ``step`` m (or less) from depth ``top`` to ``bottom`` whose velocity rises
+    linearly from ``v_top`` to ``v_bottom``, m/s: a compacting soft-sediment overburden."""
+    n = max(1, int(np.ceil((bottom - top) / step - 1e-9)))
+    edges = np.linspace(top, bottom, n + 1)
+    mid = 0.5 * (edges[1:] + edges[:-1])
+    return np.diff(edges), v_top + (v_bottom - v_top) * (mid - top) / max(bottom - top, 1e-9)
+
+
+def f03_marine_spec(water: float = 60.0, *, hard: bool = True, snr: float = 1.5, seed: int = 21, ncmp: int = 48,
+                    block_depth: float = 20.0, sediment_velocity: float = 1600.0, water_velocity: float = 1490.0,
+                    lateral: float = 0.02, nsamples: int = 700, **extra) -> LineSpec:
+    """A marine line over the F03-02 log at its own resolution, under a soft-sediment gradient.
+
+    The log (305-2146 m, its velocity inversion near 1.1-1.6 km kept) blocked to ``block_depth``
+    layers; above it, from the sea floor down to the first log sample, a compacting overburden
+    whose velocity rises linearly from ``sediment_velocity`` to the log's first block (assumed:
+    the log says nothing above 305 m); ``water`` m of sea water on top. A ``hard`` sea floor has
+    a reflection coefficient of 0.4 with reverberations to order 6 and peg-legs of every
+    reflector to 3 extra water round trips; otherwise the sea floor's own impedance contrast, with
+    reverberations and peg-legs to order 2 (weak multiples).
+    """
+    curves, _, _ = read_las(WELLS / "F03-02.las")
+    h_log, v_log = blocked_model_from_sonic(curves["DEPT"], curves["DT"], overburden_velocity=sediment_velocity,
+                                            block_depth=block_depth, datum_depth=water)
+    # the log starts at 305 m; its first layer is the assumed overburden, replaced by a gradient
+    top_log = water + h_log[0]
+    h_grad, v_grad = gradient_layers(water, top_log, sediment_velocity, float(v_log[1]), step=block_depth)
+    thickness = np.concatenate(([water], h_grad, h_log[1:]))
+    velocity = np.concatenate(([water_velocity], v_grad, v_log[1:]))
+    multiples = dict(seafloor_reflection=0.4, reverberation_order=6, pegleg_order=3, multiples=False) if hard else \
+        dict(reverberation_order=2, pegleg_order=2)
+    multiples.update(extra)
+    return LineSpec(ncmp=ncmp, model=(thickness, velocity), snr=snr, nsamples=nsamples, seed=seed, lateral=lateral,
+                    **multiples)
+
+
+def gas_sand_spec(*, snr: float = 2.0, seed: int = 23, ncmp: int = 48, **extra) -> LineSpec:
+    """An invented shelf model with a gas sand 20 % slower than the shale above it.
+
+    200 m of water, soft clastics, a 2300 m/s shale over a 150 m gas sand at 1840 m/s (20 %
+    slower), then faster clastics and carbonates; the sea floor's own impedance contrast with
+    reverberations and peg-legs to order 2.
+    """
+    thickness = np.array([200.0, 350.0, 450.0, 500.0, 150.0, 600.0, 700.0, 900.0])
+    velocity = np.array([1500.0, 1750.0, 2000.0, 2300.0, 1840.0, 2600.0, 3100.0, 3600.0, 4200.0])
+    args = dict(reverberation_order=2, pegleg_order=2, lateral=0.02, nsamples=800)
+    args.update(extra)
+    return LineSpec(ncmp=ncmp, model=(thickness, velocity), snr=snr, seed=seed, **args)
+
+
 def p135_spec(**kw) -> LineSpec:
     """Short-time line over P-135: 2 ms sampling and a 40 Hz wavelet, as a shallow survey would
     record; overburden assumed 259 m at 2800 m/s."""
@@ -69,9 +120,13 @@ def p135_params() -> RunParams:
 
 def scenarios() -> dict:
     """``{name: (spec, params or None)}`` of the scenarios in the README's accuracy table."""
-    out = {"demo": (demo_spec(), None), "reverb": (reverb_spec(), None)}
+    out = {"demo": (demo_spec(), None), "reverb": (reverb_spec(), None), "gas sand": (gas_sand_spec(), None)}
     if (WELLS / "F03-02.las").exists():
         out["f03"] = (sonic_line_spec(WELLS / "F03-02.las", water=40.0), None)
+        out["f03 shallow water"] = (f03_marine_spec(40.0, hard=False, snr=2.0), None)
+        for water in (60.0, 120.0, 250.0):
+            out[f"f03 water {water:.0f} m"] = (f03_marine_spec(water, hard=True, snr=1.0 if water == 120 else 1.5),
+                                              None)
     if (WELLS / "P-135.las").exists():
         out["p135"] = (p135_spec(), p135_params())
     return out

@@ -38,16 +38,76 @@ class Score:
     picks_on_multiples: int
     used_picks: int
     flagged_multiples: int
+    field_errors: np.ndarray = None      # every (CMP, t0 sample) from tmin to the deepest reflector
+    sea_floor_errors: np.ndarray = None  # |found - true| water-bottom time per CMP, s (NaN: not found)
 
     def summary(self) -> dict:
         def pct(a, q):
             return float(100 * np.percentile(a, q)) if a.size else float("nan")
 
-        return {"vrms_median_pct": pct(self.vrms_errors, 50), "vrms_p95_pct": pct(self.vrms_errors, 95),
+        out = {"vrms_median_pct": pct(self.vrms_errors, 50), "vrms_p95_pct": pct(self.vrms_errors, 95),
                 "vrms_max_pct": pct(self.vrms_errors, 100), "vrms_checked": int(self.vrms_errors.size),
                 "vint_median_pct": pct(self.vint_errors, 50), "vint_p90_pct": pct(self.vint_errors, 90),
                 "vint_checked": int(self.vint_errors.size), "picks_on_multiples": self.picks_on_multiples,
                 "used_picks": self.used_picks, "flagged_multiples": self.flagged_multiples}
+        if self.field_errors is not None:
+            f = self.field_errors
+            out.update(field_median_pct=pct(f, 50), field_p95_pct=pct(f, 95), field_max_pct=pct(f, 100),
+                       field_checked=int(f.size))
+        if self.sea_floor_errors is not None:
+            e = self.sea_floor_errors
+            out.update(sea_floor_within_8ms_pct=float(100 * np.mean(np.nan_to_num(e, nan=1.0) <= 0.008)),
+                       sea_floor_p95_ms=float(1000 * np.percentile(np.nan_to_num(e, nan=1.0), 95)))
+        return out
+
+
+def true_rms(thickness: np.ndarray, velocity: np.ndarray, t: np.ndarray) -> np.ndarray:
+    """RMS velocity of a flat layered model down to each two-way time ``t`` (Dix, 1955):
+    V(t)^2 = integral_0^t v^2 dt' / t, the layer velocities constant in time inside each layer
+    and the half-space below the last interface."""
+    tb = np.concatenate(([0.0], np.cumsum(2.0 * thickness / velocity[:-1])))          # (n + 1,)
+    cum = np.concatenate(([0.0], np.cumsum(velocity[:-1] ** 2 * np.diff(tb))))       # integral to each
+    k = np.clip(np.searchsorted(tb, t, side="right") - 1, 0, velocity.size - 1)
+    integral = cum[k] + velocity[k] ** 2 * (t - tb[k])
+    return np.sqrt(integral / np.maximum(t, 1e-12))
+
+
+def field_errors(result, truth, vstack: np.ndarray, tmin: float = 0.3, min_reflectivity: float = 1e-3) -> np.ndarray:
+    """Relative error of the stacking-velocity field on every t0 sample from ``tmin`` to the
+    deepest reflector, against the band from the true RMS velocity to the best-fit stacking
+    velocity of the exact times.
+
+    Between reflectors the band is the true RMS velocity of the model at that time (exact, from
+    the layers) and that times the ratio of best-fit stacking to RMS velocity, interpolated
+    linearly in time between the reflectors (held beyond the first and last): the spread-length
+    bias varies slowly with time, the RMS velocity does not need to be interpolated at all.
+    """
+    out = []
+    for row, cmp in enumerate(result.cmp):
+        b = int(np.flatnonzero(truth.cmp == cmp)[0])
+        t_ref = truth.t0[b]
+        ok = np.isfinite(vstack[b]) & (np.abs(truth.reflection_coefficient[b]) > min_reflectivity)
+        if not ok.any():
+            continue
+        deepest = min(float(t_ref[ok].max()), float(result.t0[-1]))
+        sel = (result.t0 >= tmin) & (result.t0 <= deepest)
+        t = result.t0[sel]
+        rms = true_rms(truth.thickness[b], truth.velocity[b], t)
+        ratio = np.interp(t, t_ref[ok], vstack[b][ok] / truth.vrms[b][ok])
+        lo, hi = np.minimum(rms, rms * ratio), np.maximum(rms, rms * ratio)
+        got = result.vrms[row][sel].astype(np.float64)
+        out.append(np.where(got < lo, lo - got, np.where(got > hi, got - hi, 0.0)) / hi)
+    return np.concatenate(out) if out else np.zeros(0)
+
+
+def sea_floor_errors(result, truth) -> np.ndarray | None:
+    """|found - true| water-bottom two-way time per CMP, s (NaN where none was found), or None
+    when the result has no ``/qc/water_bottom``. The true time is the first layer's 2 h / v."""
+    if "water_bottom" not in result.qc:
+        return None
+    rows = [int(np.flatnonzero(truth.cmp == c)[0]) for c in result.cmp]
+    true = 2.0 * truth.thickness[rows, 0] / truth.velocity[rows, 0]
+    return np.abs(np.asarray(result.qc["water_bottom"], dtype=np.float64) - true)
 
 
 def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: float = 0.150,
@@ -115,4 +175,6 @@ def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: fl
             if near_m.any() and not near_p.any():
                 on_multiple += 1
     return Score(vrms_errors=vrms_err, vint_errors=vint_err, picks_on_multiples=on_multiple,
-                 used_picks=int(used.sum()), flagged_multiples=int(((flags & int(Flag.likely_multiple)) != 0).sum()))
+                 used_picks=int(used.sum()), flagged_multiples=int(((flags & int(Flag.likely_multiple)) != 0).sum()),
+                 field_errors=field_errors(result, truth, vstack, tmin, min_reflectivity),
+                 sea_floor_errors=sea_floor_errors(result, truth))

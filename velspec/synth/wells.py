@@ -38,8 +38,10 @@ def blocked_model_from_sonic(
     min_two_way=0.02,
     datum_depth=0.0,
     half_space_velocity=None,
+    block_depth=None,
 ):
-    """Block a sonic log into flat layers of equal two-way time, under a stated overburden.
+    """Block a sonic log into flat layers of equal two-way time (or equal depth), under a stated
+    overburden.
 
     The log is read as constant-slowness intervals between samples (the mean of the two end
     slownesses, i.e. trapezoidal integration of the sonic, with gaps of absent samples bridged the
@@ -67,6 +69,10 @@ def blocked_model_from_sonic(
     half_space_velocity : float, optional
         Velocity below the last block, m/s. Default: the last block's velocity (no reflector at
         the base of the log).
+    block_depth : float, optional
+        Block the log into layers of equal thickness instead, the largest number no thinner
+        than this, m (``min_two_way`` is then ignored). Each block's velocity still keeps the
+        log's integrated time exactly.
 
     Returns
     -------
@@ -106,9 +112,16 @@ def blocked_model_from_sonic(
 
     # two-way time at each sample below the first, intervals of mean slowness
     T = np.r_[0.0, np.cumsum(2.0 * np.diff(z) * 0.5 * (slow[1:] + slow[:-1]))]
-    nblock = max(1, int(np.floor(T[-1] / min_two_way + 1e-9)))
-    Tb = np.linspace(0.0, T[-1], nblock + 1)
-    zb = np.interp(Tb, T, z)  # exact: T is linear in z inside each constant-slowness interval
+    if block_depth is not None:
+        if not (np.isfinite(block_depth) and block_depth > 0):
+            raise ValueError("block_depth must be a positive thickness in m")
+        nblock = max(1, int(np.floor((z[-1] - z[0]) / block_depth + 1e-9)))
+        zb = np.linspace(z[0], z[-1], nblock + 1)
+        Tb = np.interp(zb, z, T)  # exact: T is linear in z inside each constant-slowness interval
+    else:
+        nblock = max(1, int(np.floor(T[-1] / min_two_way + 1e-9)))
+        Tb = np.linspace(0.0, T[-1], nblock + 1)
+        zb = np.interp(Tb, T, z)  # exact: T is linear in z inside each constant-slowness interval
     zb[0], zb[-1] = z[0], z[-1]
     thick = np.diff(zb)
     vel = 2.0 * thick / np.diff(Tb)
