@@ -38,6 +38,13 @@ class Flag(enum.IntFlag):
         Uncertainty above ``PickParams.doubtful_sigma`` of the velocity; used, doubtful.
     replaced
         An automatic pick at a CMP whose picks a person replaced; not used.
+    velocity_inversion
+        Slower than the traced trend, but no multiple explains it and the interval velocity it
+        implies is physical: a primary in a velocity inversion (overpressure, gas, under a fast
+        bed); used.
+    sea_floor
+        The sea floor found in the data (or given), at the water velocity: the top of the field;
+        used.
     """
 
     low_coherence = 1
@@ -49,6 +56,8 @@ class Flag(enum.IntFlag):
     outside_guide = 64
     wide_peak = 128
     replaced = 256
+    velocity_inversion = 512
+    sea_floor = 1024
 
 
 EXCLUDED = (Flag.likely_multiple | Flag.impossible_interval_velocity | Flag.lateral_outlier

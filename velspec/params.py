@@ -211,7 +211,7 @@ class PickParams:
     regional_v0: float = 1500.0
     regional_gradient: float = 0.6
     multiple_margin: float = 0.08
-    multiple_time_tolerance: float = 0.04
+    multiple_time_tolerance: float = 0.02
     multiple_velocity_tolerance: float = 0.03
     water_bottom: float = 0.0
     water_velocity: float = 1500.0

@@ -32,6 +32,7 @@ from .pick import pick_panel
 from .pick.guide import GuideFor, guide_source
 from .result import DepthFields, LineAnalysis, Spectra, now_utc
 from .scan import scan_gather, velocity_axis
+from .seafloor import NEAR_TRACES, along_line, water_bottom_time
 from .smoothing import smoothed_panel
 
 MIN_LIVE = 2  # a CMP needs two live traces for any coherence
@@ -98,12 +99,14 @@ def scan_one(gather: Gather, times: np.ndarray, dt: float, params: RunParams,
 
 
 def pick_one(outcome: CmpOutcome, gather: Gather, panel: np.ndarray, best_eta: np.ndarray | None,
-             times: np.ndarray, params: RunParams, velocities: np.ndarray, guide: np.ndarray | None) -> None:
+             times: np.ndarray, params: RunParams, velocities: np.ndarray, guide: np.ndarray | None,
+             sea_floor: tuple[float, float] | None = None) -> None:
     """Pick a (laterally smoothed) panel into ``outcome``; eta read back at each pick."""
     sp = params.scan
     picks, path = pick_panel(panel, velocities, times, params.pick, offsets=gather.offsets,
                              stretch_limit=sp.stretch_limit,
-                             vint_bounds=(params.interval.vint_min, params.interval.vint_max), guide=guide)
+                             vint_bounds=(params.interval.vint_min, params.interval.vint_max), guide=guide,
+                             sea_floor=sea_floor)
     picks["cmp"] = outcome.cmp
     if best_eta is not None:
         rows = np.abs(velocities[None, :] - picks["vrms"][:, None]).argmin(axis=1)
@@ -112,13 +115,46 @@ def pick_one(outcome: CmpOutcome, gather: Gather, panel: np.ndarray, best_eta: n
     outcome.picks, outcome.path = picks, path
 
 
+def sea_floor_pass(line: SegyLine, params: RunParams, most: int = 2000) -> tuple[np.ndarray, np.ndarray]:
+    """Two-way time (s) and water velocity (m/s) of the sea floor at every CMP of the line (NaN
+    where none, as on land).
+
+    ``params.pick.water_bottom`` and ``water_velocity`` when the time is given; otherwise found
+    on the nearest traces of at most ``most`` CMPs evenly spread along the line
+    (:func:`velspec.seafloor.water_bottom_time`), made consistent along the line
+    (:func:`velspec.seafloor.along_line`) and interpolated between them. Only a dozen traces of
+    those CMPs are read.
+    """
+    pp = params.pick
+    if pp.water_bottom > 0:
+        return np.full(line.ncmp, pp.water_bottom), np.full(line.ncmp, pp.water_velocity)
+    stride = max(1, int(np.ceil(line.ncmp / most)))
+    sampled = np.unique(np.append(np.arange(0, line.ncmp, stride), line.ncmp - 1))
+    found = np.array([water_bottom_time(g.data, g.offsets, line.dt, line.t_first, pp.water_velocity)[:2]
+                      for g in (line.read_gather(int(k), nearest=NEAR_TRACES) for k in sampled)]).reshape(-1, 2)
+    times, velocities = along_line(found[:, 0], velocities=found[:, 1])
+    velocities = np.where(np.isfinite(velocities), velocities, pp.water_velocity)
+    velocities[~np.isfinite(times)] = np.nan
+    if sampled.size == line.ncmp:
+        return times, velocities
+    every = np.arange(line.ncmp)
+    nearest = np.clip(np.searchsorted(sampled, every), 0, sampled.size - 1)
+    gap = ~np.isfinite(times[nearest])
+    out = [np.interp(every, sampled, np.nan_to_num(a, nan=0.0)) for a in (times, velocities)]
+    for a in out:
+        a[gap] = np.nan
+    return out[0], out[1]
+
+
 def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None = None,
                 progress: Callable[[int], None] | None = None,
-                guide_for: GuideFor | None = None) -> Iterator[CmpOutcome]:
+                guide_for: GuideFor | None = None, sea_floor: np.ndarray | None = None) -> Iterator[CmpOutcome]:
     """Yield one :class:`CmpOutcome` per CMP, reading ``params.block`` gathers at a time.
 
     A CMP is picked once the panels of its neighbours within ``params.pick.smooth_cmps`` are
     scanned, so at most one block plus that many panels on each side are held at a time.
+    ``sea_floor`` (ncmp, 2) holds the sea-floor time (s) and water velocity (m/s) of every CMP of
+    the line (NaN where none).
     """
     positions = np.arange(line.ncmp) if positions is None else np.asarray(positions)
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
@@ -136,7 +172,8 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
             if item.panel is not None:
                 panel = smoothed_panel([s.panel for s in pending], [s.position for s in pending], nxt, half)
                 pick_one(item.outcome, item.gather, panel, item.best_eta, times, params, velocities,
-                         guide_for(item.outcome.cmp))
+                         guide_for(item.outcome.cmp),
+                         None if sea_floor is None else tuple(map(float, sea_floor[item.position])))
                 if int(item.position) in keep:
                     item.outcome.panel = panel
             nxt += 1
@@ -212,9 +249,11 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
                 raise InputError(f"{params.pick.edits}: picks for CMP(s) the line does not have: "
                                  f"{', '.join(map(str, unknown[:5]))}{' ...' if len(unknown) > 5 else ''}")
         guide_for = guide_source(params, segy.times)
+        sea_floor, water_velocity = sea_floor_pass(segy, params)
         update, close = progress(segy.ncmp) if progress else (None, None)
         try:
-            outcomes = list(stream_pass(segy, params, progress=update, guide_for=guide_for))
+            outcomes = list(stream_pass(segy, params, progress=update, guide_for=guide_for,
+                                        sea_floor=np.stack([sea_floor, water_velocity], axis=1)))
         finally:
             if close is not None:
                 close()
@@ -250,6 +289,8 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
           "nan_traces": np.array([o.dropped_nan for o in analysed], dtype=np.int32),
           "dead_traces": np.array([o.dropped_dead for o in analysed], dtype=np.int32),
           "path": paths,
+          "water_bottom": sea_floor[rows].astype(np.float64),
+          "water_velocity": water_velocity[rows].astype(np.float64),
           "skipped_cmp": np.array([o.cmp for o in skipped], dtype=np.int64),
           "skipped_nan_traces": np.array([o.dropped_nan for o in skipped], dtype=np.int32)}
     return _assemble(t0, cmp, ix.cmp_x[rows], ix.cmp_y[rows], picks, fields, qc, spectra, attrs, warnings_out)
@@ -314,8 +355,9 @@ def revise_result(result: LineAnalysis | str | Path, edits: dict | str | Path | 
     attrs = {k: v for k, v in result.attrs.items() if k != "format_version"}
     attrs.update(created=now_utc(), parameters=run_params.to_dict(), velspec_version=__version__,
                  revised_from=source, edited_cmps=int(fields.edited_cmps))
-    qc = {k: result.qc[k] for k in ("live_traces", "nan_traces", "dead_traces", "path", "skipped_cmp",
-                                    "skipped_nan_traces") if k in result.qc}
+    qc = {k: result.qc[k] for k in ("live_traces", "nan_traces", "dead_traces", "path", "water_bottom",
+                                    "water_velocity",
+                                    "skipped_cmp", "skipped_nan_traces") if k in result.qc}
     return _assemble(result.t0, result.cmp, result.cmp_x, result.cmp_y, picks, fields, qc, result.spectra, attrs, [])
 
 

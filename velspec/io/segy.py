@@ -338,10 +338,13 @@ class SegyLine:
         """Sample times from the traces' time zero, s (delay recording time honoured)."""
         return self.t_first + self.dt * np.arange(self.nsamples)
 
-    def read_gather(self, k: int) -> Gather:
-        """Read the k-th CMP (0-based position in ``index.cmp``): live traces sorted by offset."""
+    def read_gather(self, k: int, nearest: int | None = None) -> Gather:
+        """Read the k-th CMP (0-based position in ``index.cmp``): live traces sorted by offset;
+        with ``nearest``, only that many of the nearest offsets."""
         ix = self.index
         traces = ix.order[ix.start[k]: ix.start[k + 1]]
+        if nearest is not None:
+            traces = traces[:nearest]
         data = _to_float32(self._read_samples(traces), self.sample_format)
         finite = np.isfinite(data).all(axis=1)
         dead = (self.dead[traces] | ~data.any(axis=1)) & finite

@@ -30,6 +30,7 @@ __all__ = ["pick_panel", "trace_function", "velocity_bounds", "regional_trend", 
            "SIGMA_NOISE", "SIGMA_MODEL", "MAX_PASSES"]
 
 MAX_PASSES = 3  # tracings of one panel: the first, and up to two with multiples blanked
+SEA_FLOOR_SIGMA = 0.005  # the sea floor's velocity is the water's: known to half a percent
 _MULTIPLE = int(Flag.likely_multiple)
 
 
@@ -37,7 +38,8 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
                search: int = 4, offsets: np.ndarray | None = None,
                stretch_limit: float | None = None,
                vint_bounds: tuple[float, float] | None = None,
-               guide: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+               guide: np.ndarray | None = None,
+               sea_floor: tuple[float, float] | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Trace the velocity function and pick the coherence maxima along it.
 
     Parameters
@@ -64,6 +66,11 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
     guide : ndarray (nt,), optional
         Guide stacking-velocity function, m/s, with the band of ``params.guide_below`` /
         ``guide_above`` around it.
+    sea_floor : (t0, v), optional
+        Two-way time (s) and water velocity (m/s) of the sea floor at this CMP
+        (:mod:`velspec.seafloor`); None or NaN where none is known. Its reverberations and the
+        peg-legs of the primaries are predicted from it, and it becomes a pick (flag
+        ``sea_floor``).
 
     Returns
     -------
@@ -74,6 +81,9 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         The traced velocity function on every t0 sample, m/s.
     """
     nv, nt = panel.shape
+    if sea_floor is None or not (np.isfinite(sea_floor[0]) and sea_floor[0] > 0 and np.isfinite(sea_floor[1])):
+        sea_floor = (float("nan"), params.water_velocity)
+    floor_t, water_v = float(sea_floor[0]), float(sea_floor[1])
     bounds = velocity_bounds(t0, params, velocities[0], velocities[-1], guide)
     reach = None
     if offsets is not None and stretch_limit is not None:
@@ -82,7 +92,8 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         ranked = np.sort(np.abs(offsets))
         reach = lambda j, v: np.searchsorted(ranked, v * np.maximum(t0[j], 0.0) * factor, side="right")  # noqa: E731
     picks, path = _pick_along_path(panel, velocities, t0, params, bounds, vint_bounds, search, reach)
-    known = classify_multiples(picks, slow_events(panel, velocities, t0, path, reach, params), params)
+    known, explained = classify_multiples(picks, slow_events(panel, velocities, t0, path, reach, params), params,
+                                          sea_floor, vint_bounds)
     blank = panel
     for _ in range(MAX_PASSES - 1):
         from_path = np.isin(known["t0"], picks["t0"]) & ((known["flags"] & _MULTIPLE) != 0)
@@ -95,15 +106,36 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         picks, path = _pick_along_path(blank, velocities, t0, params, bounds, vint_bounds, search, reach)
         again = slow_events(blank, velocities, t0, path, reach, params)
         prior = known[(known["flags"] & _MULTIPLE) != 0]
-        known = classify_multiples(picks, np.concatenate([prior, again]), params)
+        known, explained = classify_multiples(picks, np.concatenate([prior, again]), params, sea_floor,
+                                              vint_bounds)
     mult = (known["flags"] & _MULTIPLE) != 0
-    picks = known[~mult]
+    picks, explained, multiples = known[~mult], explained[~mult], known[mult]
+    lo_floor, hi_floor = (np.interp(floor_t, t0, b) for b in bounds) if np.isfinite(floor_t) else (0.0, 0.0)
+    if np.isfinite(floor_t) and lo_floor <= water_v <= hi_floor:
+        # (a corridor or a person's guide band that excludes the water velocity there wins)
+        # the sea floor is a primary at the water velocity and the top of the field; a pick on it
+        # (or on its smear, a little later and faster) is the same event
+        wv = water_v
+        same = ((np.abs(picks["t0"] - floor_t) <= params.multiple_time_tolerance)
+                & (np.abs(picks["vrms"] - wv) <= 2 * params.multiple_velocity_tolerance * wv))
+        floor = candidate_table([(floor_t, wv, float(picks["coherence"][same].max()) if same.any() else 1.0,
+                                  SEA_FLOOR_SIGMA * wv, int(Flag.sea_floor))])
+        picks, explained = picks[~same], explained[~same]
+        order = np.argsort(np.concatenate([floor["t0"], picks["t0"]]), kind="stable")
+        picks = np.concatenate([floor, picks])[order]
+        explained = np.concatenate([[False], explained])[order]
     if vint_bounds is not None:
-        keep = consistent_picks(picks["t0"], picks["vrms"], picks["coherence"], vint_bounds)
+        # the first to go of a pair Dix forbids: one a multiple explains, then one slower than the
+        # water below the sea floor, then the weaker
+        rank = picks["coherence"] - 1.0 * explained
+        if np.isfinite(floor_t):
+            rank = rank - 2.0 * ((picks["t0"] > floor_t + 1e-9) & (picks["vrms"] < water_v))
+            rank[(picks["flags"] & int(Flag.sea_floor)) != 0] = np.inf
+        keep = consistent_picks(picks["t0"], picks["vrms"], rank, vint_bounds)
         picks["flags"][~keep] |= int(Flag.impossible_interval_velocity)
     picks["flags"][picks["coherence"] < params.doubtful_coherence] |= int(Flag.low_coherence)
     picks["flags"][picks["sigma"] > params.doubtful_sigma * picks["vrms"]] |= int(Flag.wide_peak)
-    merged = np.concatenate([picks, known[mult]])
+    merged = np.concatenate([picks, multiples])
     merged = merged[np.lexsort((merged["vrms"], merged["t0"]))]
     return as_pick_table(merged), path.astype(np.float32)
 

@@ -27,8 +27,9 @@ def consistent_picks(t0: np.ndarray, v: np.ndarray, coherence: np.ndarray,
         if idx.size < 2:
             return keep
         b = t0[idx] * v[idx].astype(np.float64) ** 2
-        u = np.diff(b) / np.diff(t0[idx])
-        bad = np.flatnonzero((u < lo2) | (u > hi2))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            u = np.diff(b) / np.diff(t0[idx])
+        bad = np.flatnonzero(~((u >= lo2) & (u <= hi2)))   # two picks at one time are a bad pair too
         if not bad.size:
             return keep
         # Drop the weakest offender first: removing it may make its neighbours consistent.

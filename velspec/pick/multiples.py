@@ -22,51 +22,81 @@ from ..flags import Flag
 from .peaks import candidate_table, event_columns, peak_sigma, refine_peak
 
 MULTIPLE = int(Flag.likely_multiple)
+INVERSION = int(Flag.velocity_inversion)
+SLOW = 1 << 15          # working mark of an event found below the traced function; never returned
+MAX_WATER_ORDER = 6     # water round trips predicted for reverberations and peg-legs
+STRONG = 0.5            # coherence of a primary strong enough to make a surface multiple of its own
+WATER_TIME_ERROR = 0.004  # s: how far the sea floor's time may be off, per trip through the water
 
 
-def classify_multiples(picks: np.ndarray, slow: np.ndarray, params) -> np.ndarray:
-    """Picks and slow events together, time-ordered, with ``likely_multiple`` set on the multiples.
+def classify_multiples(picks: np.ndarray, slow: np.ndarray, params,
+                       sea_floor: tuple[float, float] = (float("nan"), float("nan")),
+                       vint_bounds: tuple[float, float] | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Picks and slow events together, time-ordered, the likely multiples flagged, and why.
 
-    Flat layers make every surface-related multiple a sum of primary legs: events a and b
-    combine into one at t0 = t_a + t_b whose stacking velocity is the RMS over the whole path,
-    V^2 = (t_a V_a^2 + t_b V_b^2) / (t_a + t_b) (Dix, 1955). Walking down in time, a pick that
-    an earlier pair of events (a primary and a primary or recognised multiple) predicts within
-    ``multiple_time_tolerance`` and ``multiple_velocity_tolerance`` is a likely multiple; so
-    are the slow events, which no primary trend explains, and the weaker maxima on a recognised
-    multiple's smear. A sea floor that no pick holds (:func:`sea_floor`) joins the predictions.
+    A multiple is recognised by prediction, not by slowness alone. Flat layers make every
+    surface-related multiple a sum of primary legs: events a and b combine into one at
+    t0 = t_a + t_b whose stacking velocity is the RMS over the whole path,
+    V^2 = (t_a V_a^2 + t_b V_b^2) / (t_a + t_b) (Dix, 1955). Walking down in time:
+
+    - with a sea floor at t_w (found in the data, given, or inferred from its reverberations):
+      its reverberations at (m + 1) t_w with the water velocity, and the peg-legs
+      t_p + j t_w of every primary p above (j up to :data:`MAX_WATER_ORDER`);
+    - the surface multiples t_a + t_b of strong primaries (coherence >= :data:`STRONG`);
+    - without a sea floor, any earlier event combined with an earlier primary.
+
+    An event within ``multiple_time_tolerance`` and ``multiple_velocity_tolerance`` of a
+    prediction is a likely multiple. An event slower than the traced function (``slow``) that no
+    prediction explains is a primary in a velocity inversion when the interval velocity it
+    implies with the primary above lies in the physical range (at least the water velocity below
+    a sea floor): it is kept and flagged ``velocity_inversion``; otherwise it is a likely
+    multiple. Last, a weaker maximum on a recognised multiple's smear is the multiple's tail.
 
     Parameters
     ----------
     picks, slow : candidate tables (:data:`velspec.pick.peaks.CANDIDATE_DTYPE`)
-        Maxima along the traced function, and events slower than it.
+        Maxima along the traced function, and events slower than it (earlier multiples may be
+        among them, already flagged).
     params : PickParams
+    sea_floor : (t0, v)
+        Two-way time (s) and water velocity (m/s) of the sea floor; NaN time where none is known
+        (then ``params.water_bottom`` or an inference from the picks is tried).
+    vint_bounds : (vmin, vmax), optional
+        Physical interval-velocity range, m/s (default ``(1400, 7000)``).
 
     Returns
     -------
-    candidate table, ascending in t0 (stable)
+    events : candidate table, ascending in t0 (stable)
+    explained : bool ndarray
+        Events that a prediction explains within twice the tolerances (flagged or not): the first
+        to drop when two picks contradict each other.
     """
+    slow = slow.copy()
+    slow["flags"][(slow["flags"] & MULTIPLE) == 0] |= SLOW
     events = np.concatenate([picks, slow])
     events = events[np.argsort(events["t0"], kind="stable")]
+    explained = np.zeros(events.size, dtype=np.bool_)
     if params.multiple_margin <= 0:
-        return events
+        events["flags"] &= np.uint16(~SLOW & 0xFFFF)
+        return events, explained
     t, v, c = (np.ascontiguousarray(events[k]) for k in ("t0", "vrms", "coherence"))
     flags = np.ascontiguousarray(events["flags"])
-    floor = sea_floor(t, v, flags, params)
-    if floor is not None:
-        # an unseen sea floor still makes multiples: it takes part in the predictions only
-        t, v, c = (np.concatenate(([x], a)) for x, a in zip(floor + (1.0,), (t, v, c)))
-        flags = np.concatenate((np.zeros(1, flags.dtype), flags))
-    _mark_multiples(t, v, c, flags, params.multiple_time_tolerance, params.multiple_velocity_tolerance,
-                    params.min_separation, MULTIPLE)
-    events["flags"] = flags[1:] if floor is not None else flags
-    return events
+    floor, water_v = sea_floor
+    if not (np.isfinite(floor) and floor > 0):
+        inferred = infer_sea_floor(t, v, flags, params)
+        floor, water_v = (-1.0, water_v) if inferred is None else inferred
+    lo, hi = vint_bounds if vint_bounds is not None else (1400.0, 7000.0)
+    _mark_predicted(t, v, c, flags, explained, float(floor), float(water_v), params.multiple_time_tolerance,
+                    params.multiple_velocity_tolerance, STRONG, float(lo), float(hi), params.min_separation,
+                    MULTIPLE, INVERSION, SLOW)
+    events["flags"] = flags & np.uint16(~SLOW & 0xFFFF)
+    return events, explained
 
 
-def sea_floor(t: np.ndarray, v: np.ndarray, flags: np.ndarray, params) -> tuple | None:
+def infer_sea_floor(t: np.ndarray, v: np.ndarray, flags: np.ndarray, params) -> tuple | None:
     """(t0, v) of a sea floor that no pick holds, or None.
 
-    Given (``water_bottom`` > 0) it is used unless a pick lies there already. Otherwise it is
-    inferred from its reverberations: when the earliest pick (t1, V1) has a companion at 1.5 t1
+    Given (``water_bottom`` > 0) it is used. Otherwise it is inferred from its reverberations: when the earliest pick (t1, V1) has a companion at 1.5 t1
     with the same velocity, the two are the second and third passes of a water layer whose
     floor at t1 / 2 was too shallow to be seen inside the stretch mute, and no primary could
     keep the stacking velocity unchanged over that interval while the earth below the sea
@@ -74,8 +104,7 @@ def sea_floor(t: np.ndarray, v: np.ndarray, flags: np.ndarray, params) -> tuple 
     """
     tol_t, tol_v = params.multiple_time_tolerance, params.multiple_velocity_tolerance
     if params.water_bottom > 0:
-        near = np.abs(t - params.water_bottom) <= tol_t
-        return None if near.any() else (params.water_bottom, params.water_velocity)
+        return params.water_bottom, params.water_velocity
     prim = np.flatnonzero((flags & MULTIPLE) == 0)
     if prim.size < 2:
         return None
@@ -85,27 +114,80 @@ def sea_floor(t: np.ndarray, v: np.ndarray, flags: np.ndarray, params) -> tuple 
 
 
 @njit(cache=True, nogil=True)
-def _mark_multiples(t, v, c, flags, tol_t, tol_v, reach, bit):
-    """Set ``bit`` in ``flags`` (in place) on predicted surface multiples and on their tails."""
+def _matches(ti, vi, tp, vp, tol_t, tol_v):
+    return abs(tp - ti) <= tol_t and abs(vi - vp) <= tol_v * vp
+
+
+@njit(cache=True, nogil=True)
+def _pair(ti, vi, a_t, a_v, p_t, p_v, tol_t, tol_v):
+    ta = a_t + p_t
+    return abs(ta - ti) <= tol_t and _matches(ti, vi, ta, np.sqrt((a_t * a_v * a_v + p_t * p_v * p_v) / ta),
+                                              tol_t, tol_v)
+
+
+@njit(cache=True, nogil=True)
+def _predicted(i, t, v, c, flags, wb, vw, tol_t, tol_v, strong, bit):
+    """True when the sea floor or earlier primaries predict event i within the tolerances."""
+    ti, vi = t[i], v[i]
+    if wb > 0:
+        # an error in the sea floor's time adds up with every trip through the water
+        for m in range(1, MAX_WATER_ORDER + 1):          # reverberations of the sea floor
+            if _matches(ti, vi, (m + 1) * wb, vw, tol_t + (m + 1) * WATER_TIME_ERROR, tol_v):
+                return True
+    for p in range(i):
+        if flags[p] & bit or t[p] >= ti - tol_t:
+            continue
+        if wb > 0:
+            if t[p] > 0.5 * wb:
+                for j in range(1, MAX_WATER_ORDER + 1):  # peg-legs of primary p
+                    if _pair(ti, vi, j * wb, vw, t[p], v[p], tol_t + j * WATER_TIME_ERROR, tol_v):
+                        return True
+            if c[p] >= strong:
+                for a in range(p + 1):                   # surface multiples of strong primaries
+                    if not flags[a] & bit and c[a] >= strong and _pair(ti, vi, t[a], v[a], t[p], v[p], tol_t, tol_v):
+                        return True
+        else:
+            for a in range(i):                           # any earlier event with primary p
+                if t[a] < ti - tol_t and _pair(ti, vi, t[a], v[a], t[p], v[p], tol_t, tol_v):
+                    return True
+    return False
+
+
+@njit(cache=True, nogil=True)
+def _mark_predicted(t, v, c, flags, explained, wb, vw, tol_t, tol_v, strong, vint_lo, vint_hi, reach, bit,
+                    inversion, slow):
+    """Set ``bit`` (in place) on predicted multiples, on unexplained slow events that imply an
+    impossible interval velocity and on multiples' smears; ``inversion`` on the slow events kept
+    as primaries; ``explained`` where a prediction lies within twice the tolerances."""
     n = t.size
     for i in range(n):
         if flags[i] & bit:
+            explained[i] = True
             continue
-        hit = False
-        for a in range(n):                      # any earlier event, primary or multiple ...
-            if hit or t[a] >= t[i] - tol_t:
-                continue
-            for p in range(n):                  # ... combined with an earlier primary
-                if t[p] >= t[i] - tol_t or flags[p] & bit:
-                    continue
-                tp = t[a] + t[p]
-                if abs(tp - t[i]) > tol_t:
-                    continue
-                vp = np.sqrt((t[a] * v[a] * v[a] + t[p] * v[p] * v[p]) / tp)
-                if abs(v[i] - vp) <= tol_v * vp:
-                    hit = True
-                    break
-        if hit:
+        if _predicted(i, t, v, c, flags, wb, vw, tol_t, tol_v, strong, bit):
+            flags[i] |= bit
+            explained[i] = True
+            continue
+        explained[i] = _predicted(i, t, v, c, flags, wb, vw, 2 * tol_t, 2 * tol_v, strong, bit)
+        if not flags[i] & slow:
+            continue
+        # slower than the trend and no multiple explains it: a primary of an inversion when the
+        # interval velocity it implies with the primary above is physical
+        lo = max(vint_lo, vw) if wb > 0 and t[i] > wb else vint_lo
+        above = -1
+        for p in range(i - 1, -1, -1):
+            if not flags[p] & bit and t[p] < t[i] - 1e-9:
+                above = p
+                break
+        if above >= 0:
+            u = (t[i] * v[i] * v[i] - t[above] * v[above] * v[above]) / (t[i] - t[above])
+        elif wb > 0 and t[i] > wb:
+            u = (t[i] * v[i] * v[i] - wb * vw * vw) / (t[i] - wb)
+        else:
+            u = v[i] * v[i]
+        if lo * lo <= u <= vint_hi * vint_hi:
+            flags[i] |= inversion
+        else:
             flags[i] |= bit
     # The coherence of a strong event smears along a diagonal of (t0, v): a later t0 with a
     # higher velocity (or an earlier with a lower) still fits its far offsets. A weaker maximum
@@ -119,7 +201,7 @@ def _mark_multiples(t, v, c, flags, tol_t, tol_v, reach, bit):
             dt_m = t[i] - t[m]
             dv_m = v[i] - v[m]
             if abs(dt_m) <= reach and dt_m * dv_m >= 0 and abs(dv_m) <= 2 * tol_v * v[m]:
-                flags[i] |= bit
+                flags[i] = (flags[i] | bit) & ~inversion
                 break
 
 
@@ -185,7 +267,8 @@ def _range_maxima_wide(panel, lo, hi):
 def slow_events(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, path: np.ndarray, reach,
                 params) -> np.ndarray:
     """Coherence events slower than ``(1 - multiple_margin)`` times the traced function ``path``,
-    as a candidate table flagged ``likely_multiple``; ``reach(j, v)`` counts the live traces."""
+    as a candidate table (unflagged: :func:`classify_multiples` tells multiples from primaries
+    of an inversion); ``reach(j, v)`` counts the live traces."""
     if params.multiple_margin <= 0:
         return candidate_table([])
     nv = velocities.size
@@ -201,7 +284,7 @@ def slow_events(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, path:
         if not (0 < r < nv - 1 and column[r - 1] <= column[r] and column[r + 1] <= column[r]):
             continue   # the flank of the primary's peak or the axis edge, not an event of its own
         v, c = refine_peak(column, velocities, r)
-        out.append((t0[j], v, c, peak_sigma(column, velocities, r, v, c), MULTIPLE))
+        out.append((t0[j], v, c, peak_sigma(column, velocities, r, v, c), 0))
     return candidate_table(out)
 
 

@@ -72,8 +72,8 @@ def f03_marine_spec(water: float = 60.0, *, hard: bool = True, snr: float = 1.5,
     whose velocity rises linearly from ``sediment_velocity`` to the log's first block (assumed:
     the log says nothing above 305 m); ``water`` m of sea water on top. A ``hard`` sea floor has
     a reflection coefficient of 0.4 with reverberations to order 6 and peg-legs of every
-    reflector to 3 extra water round trips; otherwise the sea floor's own impedance contrast, with
-    reverberations and peg-legs to order 2 (weak multiples).
+    reflector to 3 extra water round trips; a soft one 0.2 with reverberations and peg-legs to
+    order 2 (weak multiples).
     """
     curves, _, _ = read_las(WELLS / "F03-02.las")
     h_log, v_log = blocked_model_from_sonic(curves["DEPT"], curves["DT"], overburden_velocity=sediment_velocity,
@@ -84,7 +84,7 @@ def f03_marine_spec(water: float = 60.0, *, hard: bool = True, snr: float = 1.5,
     thickness = np.concatenate(([water], h_grad, h_log[1:]))
     velocity = np.concatenate(([water_velocity], v_grad, v_log[1:]))
     multiples = dict(seafloor_reflection=0.4, reverberation_order=6, pegleg_order=3, multiples=False) if hard else \
-        dict(reverberation_order=2, pegleg_order=2)
+        dict(seafloor_reflection=0.2, reverberation_order=2, pegleg_order=2)
     multiples.update(extra)
     return LineSpec(ncmp=ncmp, model=(thickness, velocity), snr=snr, nsamples=nsamples, seed=seed, lateral=lateral,
                     **multiples)
@@ -123,7 +123,7 @@ def scenarios() -> dict:
     out = {"demo": (demo_spec(), None), "reverb": (reverb_spec(), None), "gas sand": (gas_sand_spec(), None)}
     if (WELLS / "F03-02.las").exists():
         out["f03"] = (sonic_line_spec(WELLS / "F03-02.las", water=40.0), None)
-        out["f03 shallow water"] = (f03_marine_spec(40.0, hard=False, snr=2.0), None)
+        out["f03 shallow water"] = (f03_marine_spec(60.0, hard=False, snr=2.0), None)
         for water in (60.0, 120.0, 250.0):
             out[f"f03 water {water:.0f} m"] = (f03_marine_spec(water, hard=True, snr=1.0 if water == 120 else 1.5),
                                               None)
