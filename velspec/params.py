@@ -282,6 +282,186 @@ class PickParams:
 
 
 @dataclass(frozen=True)
+class ConditionParams:
+    """Gather conditioning before the scan: trace editing, band-pass, top mute, gain, supergathers.
+
+    The steps run in that order on every CMP gather (:func:`velspec.condition.condition_gather`):
+    editing first, so that a spike or a noise burst is not smeared by the filter; the filter
+    before the mute, so that its ringing does not refill the muted zone; gain last. The defaults
+    aim at marine data whose strongest energy is the linear package of direct, head and guided
+    waves, with faint shallow reflections beneath it. They are a starting point, to be tuned.
+
+    Attributes
+    ----------
+    edit : bool
+        Trace editing on (default True): spikes clipped, noisy and dead traces left out. Cheap,
+        and a single noise burst can dominate a semblance window, so it is on.
+    spike_sigmas : float
+        A sample is a spike when it lies more than this many robust standard deviations
+        (1.4826 MAD) from its trace's median (default 12)...
+    spike_neighbour_ratio : float
+        ...and its magnitude exceeds this many times the largest magnitude on the two traces
+        either side of it in offset within ``spike_window`` (default 4), so that a strong
+        event that its neighbours share, such as the direct wave or the sea floor, is never
+        clipped. Spikes are clipped to the median +- ``spike_sigmas`` deviations.
+    spike_window : float
+        Length of that window on the neighbours, centred on the sample, s (default 0.2: covers
+        the direct wave's moveout over two traces 50 m apart).
+    edit_traces : int
+        Odd number of traces, nearest in offset, whose median RMS a trace is compared with
+        (default 11).
+    noisy_sigmas, noisy_ratio : float
+        A trace is noisy, and left out, when its log RMS lies more than ``noisy_sigmas`` robust
+        deviations of the gather above that median and its RMS exceeds ``noisy_ratio`` times
+        the median (defaults 5 and 4: the ratio keeps the smooth fall of amplitude with offset of
+        a clean gather from being taken for noise).
+    dead_ratio : float
+        A trace whose RMS is below this fraction of that median is dead, and left out (default
+        0.01); so is one that is all zero. One that holds non-finite samples is left out even
+        with editing off.
+    bandpass : bool
+        Zero-phase Butterworth band-pass on (default True).
+    bandpass_low, bandpass_high : float
+        Corner (-3 dB of one pass, -6 dB after the forward and backward passes) frequencies, Hz
+        (defaults 4 and 60). Mild: 4 Hz takes out swell noise and drift, 60 Hz keeps all that a
+        semblance scan uses and lies below the Nyquist frequency of 8 ms data. 0 for
+        ``bandpass_low`` makes it a low-pass, 0 for ``bandpass_high`` a high-pass.
+    bandpass_order : int
+        Butterworth order of one pass, 1..10 (default 4); the forward and backward passes
+        double it.
+    mute : str
+        Top mute: ``"off"``; ``"auto"`` (default) from the first breaks found on each trace;
+        ``"linear"``: t = ``mute_intercept`` + abs(x) / ``mute_velocity``; ``"table"``: times
+        linear in offset between the rows of ``mute_table``, held beyond the first and last.
+        Automatic by default because the first arrivals of marine data are strong and clear,
+        and the package that follows them is what most harms a shallow velocity scan.
+    mute_table : tuple of (offset, time) rows
+        m and s, offsets increasing.
+    mute_intercept, mute_velocity : float
+        The linear mute: s (default 0) and m/s (default 1500, the speed of sound in sea water).
+    mute_after : float
+        The automatic mute lies this long after the fitted first breaks, s (default 0.06: one
+        and a half periods of a 25 Hz wavelet, so that the first-arrival wavelets themselves go).
+    mute_taper : float
+        Length of the cosine taper from zero at the mute line to full amplitude below it, s
+        (default 0.03); 0 for a hard mute.
+    first_break_window : float
+        Length of the two energy windows of the first-break detector, s (default 0.03, about a
+        period of the dominant frequency).
+    first_break_traces : int
+        Odd length, in traces, of the running median that fits the first breaks across the
+        gather before they are made to increase with offset (default 7).
+    gain : str
+        ``"none"``, ``"spherical"`` (default): the divergence correction t v(t)^2 / v0^2, or
+        ``"agc"``: automatic gain control. Semblance normalises each window, so only the
+        balance between offsets and times matters; the default velocity function of 1500 m/s
+        makes the default correction a mild gain proportional to t.
+    gain_velocity : tuple of (time, velocity) rows
+        RMS velocity function of the divergence correction, s and m/s, linear between the rows
+        and held beyond them (default a constant 1500 m/s); v0 is its first velocity.
+    agc_window : float
+        Length of the sliding AGC window, s (default 0.5).
+    supergather_cmps : int
+        Odd number of neighbouring CMPs combined into one supergather (default 1: off).
+    supergather_bin : float
+        Offset bin width of the supergather, m (default 0: the median offset step of the
+        central gather).
+    """
+
+    edit: bool = True
+    spike_sigmas: float = 12.0
+    spike_neighbour_ratio: float = 4.0
+    spike_window: float = 0.2
+    edit_traces: int = 11
+    noisy_sigmas: float = 5.0
+    noisy_ratio: float = 4.0
+    dead_ratio: float = 0.01
+    bandpass: bool = True
+    bandpass_low: float = 4.0
+    bandpass_high: float = 60.0
+    bandpass_order: int = 4
+    mute: str = "auto"
+    mute_table: tuple = ()
+    mute_intercept: float = 0.0
+    mute_velocity: float = 1500.0
+    mute_after: float = 0.06
+    mute_taper: float = 0.03
+    first_break_window: float = 0.03
+    first_break_traces: int = 7
+    gain: str = "spherical"
+    gain_velocity: tuple = ((0.0, 1500.0),)
+    agc_window: float = 0.5
+    supergather_cmps: int = 1
+    supergather_bin: float = 0.0
+
+    def __post_init__(self):
+        # TOML and JSON give lists; a frozen, hashable record wants tuples.
+        for name, what in (("mute_table", "offset (m), time (s)"), ("gain_velocity", "time (s), velocity (m/s)")):
+            try:
+                rows = tuple(tuple(float(x) for x in row) for row in getattr(self, name))
+            except (TypeError, ValueError):
+                raise ParameterError(f"{name} must be rows of two numbers: {what}") from None
+            object.__setattr__(self, name, rows)
+
+    def validate(self) -> None:
+        for name in ("edit", "bandpass"):
+            _check(isinstance(getattr(self, name), bool), f"{name} must be true or false")
+        _check(_finite_positive(self.spike_sigmas), "spike_sigmas must be > 0 (robust standard deviations)")
+        _check(_finite_positive(self.spike_neighbour_ratio) and self.spike_neighbour_ratio >= 1,
+               "spike_neighbour_ratio must be >= 1 (a spike stands out from its neighbours)")
+        _check(_finite_positive(self.spike_window) and self.spike_window <= 2.0, "spike_window must be in (0, 2] s")
+        _check(isinstance(self.edit_traces, int) and self.edit_traces >= 3 and self.edit_traces % 2 == 1,
+               f"edit_traces must be an odd integer >= 3, got {self.edit_traces!r}")
+        _check(_finite_positive(self.noisy_sigmas), "noisy_sigmas must be > 0 (robust standard deviations)")
+        _check(_finite_positive(self.noisy_ratio) and self.noisy_ratio > 1,
+               "noisy_ratio must be > 1 (how many times its neighbours' RMS a noisy trace has)")
+        _check(_finite_nonneg(self.dead_ratio) and self.dead_ratio < 1,
+               "dead_ratio must be in [0, 1) (fraction of the neighbours' RMS; 0: only all-zero traces)")
+        _check(_finite_nonneg(self.bandpass_low) and _finite_nonneg(self.bandpass_high),
+               "bandpass_low and bandpass_high must be >= 0 Hz (0: that side open)")
+        if self.bandpass:
+            _check(self.bandpass_low > 0 or self.bandpass_high > 0,
+                   "bandpass needs bandpass_low or bandpass_high above 0 Hz; or set bandpass = false")
+            _check(self.bandpass_high == 0 or self.bandpass_low < self.bandpass_high,
+                   f"bandpass_low ({self.bandpass_low:g} Hz) must be below bandpass_high "
+                   f"({self.bandpass_high:g} Hz)")
+        _check(isinstance(self.bandpass_order, int) and 1 <= self.bandpass_order <= 10,
+               f"bandpass_order must be an integer in 1..10, got {self.bandpass_order!r}")
+        _check(self.mute in ("off", "auto", "linear", "table"),
+               f"mute must be 'off', 'auto', 'linear' or 'table', got {self.mute!r}")
+        if self.mute == "table" or self.mute_table:
+            _check(len(self.mute_table) >= 1 and all(len(row) == 2 for row in self.mute_table),
+                   "mute_table must be rows of two numbers: offset (m), time (s); mute = 'table' needs one row or more")
+            _check(all(math.isfinite(x) for row in self.mute_table for x in row), "mute_table must be finite numbers")
+            _check(all(row[0] >= 0 and row[1] >= 0 for row in self.mute_table),
+                   "mute_table offsets (m) and times (s) must be >= 0")
+            _check(all(b[0] > a[0] for a, b in zip(self.mute_table, self.mute_table[1:])),
+                   "mute_table rows must have increasing offsets")
+        _check(_finite_nonneg(self.mute_intercept), "mute_intercept must be >= 0 s")
+        _check(_finite_positive(self.mute_velocity), "mute_velocity must be a positive velocity in m/s")
+        _check(_finite_nonneg(self.mute_after) and self.mute_after <= 2.0, "mute_after must be in [0, 2] s")
+        _check(_finite_nonneg(self.mute_taper) and self.mute_taper <= 2.0, "mute_taper must be in [0, 2] s")
+        _check(_finite_positive(self.first_break_window) and self.first_break_window <= 1.0,
+               "first_break_window must be in (0, 1] s")
+        _check(isinstance(self.first_break_traces, int) and self.first_break_traces >= 1
+               and self.first_break_traces % 2 == 1,
+               f"first_break_traces must be an odd integer >= 1, got {self.first_break_traces!r}")
+        _check(self.gain in ("none", "spherical", "agc"),
+               f"gain must be 'none', 'spherical' or 'agc', got {self.gain!r}")
+        _check(len(self.gain_velocity) >= 1 and all(len(row) == 2 for row in self.gain_velocity),
+               "gain_velocity must be rows of two numbers: time (s), velocity (m/s), one row or more")
+        _check(all(math.isfinite(t) and t >= 0 and math.isfinite(v) and v > 0 for t, v in self.gain_velocity),
+               "gain_velocity rows need a time >= 0 s and a positive velocity in m/s")
+        _check(all(b[0] > a[0] for a, b in zip(self.gain_velocity, self.gain_velocity[1:])),
+               "gain_velocity rows must have increasing times")
+        _check(_finite_positive(self.agc_window) and self.agc_window <= 10.0, "agc_window must be in (0, 10] s")
+        _check(isinstance(self.supergather_cmps, int) and self.supergather_cmps >= 1
+               and self.supergather_cmps % 2 == 1,
+               f"supergather_cmps must be an odd integer >= 1 (1: off), got {self.supergather_cmps!r}")
+        _check(_finite_nonneg(self.supergather_bin), "supergather_bin must be >= 0 m (0: the gather's offset step)")
+
+
+@dataclass(frozen=True)
 class IntervalParams:
     """Constrained Dix inversion and depth conversion.
 
@@ -323,6 +503,7 @@ class RunParams:
     scan: ScanParams = field(default_factory=ScanParams)
     pick: PickParams = field(default_factory=PickParams)
     interval: IntervalParams = field(default_factory=IntervalParams)
+    condition: ConditionParams = field(default_factory=ConditionParams)
     threads: int = 0
     block: int = 16
     keep_spectra: int = 5
@@ -332,6 +513,7 @@ class RunParams:
         self.scan.validate()
         self.pick.validate()
         self.interval.validate()
+        self.condition.validate()
         _check(isinstance(self.threads, int) and self.threads >= 0, "threads must be an integer >= 0")
         _check(isinstance(self.block, int) and self.block >= 1, "block must be an integer >= 1")
         _check(isinstance(self.keep_spectra, int) and self.keep_spectra >= 0, "keep_spectra must be >= 0")
@@ -347,7 +529,8 @@ class RunParams:
     def from_dict(cls, data: dict) -> RunParams:
         """Build from a nested mapping (TOML or JSON); unknown keys are errors, not ignored."""
         data = dict(data)
-        stages = {"read": ReadParams, "scan": ScanParams, "pick": PickParams, "interval": IntervalParams}
+        stages = {"read": ReadParams, "scan": ScanParams, "pick": PickParams, "interval": IntervalParams,
+                  "condition": ConditionParams}
         kwargs = {}
         for name, kind in stages.items():
             section = dict(data.pop(name, {}) or {})
@@ -372,7 +555,8 @@ class RunParams:
 
 
 def load_toml(path: str | Path) -> RunParams:
-    """Read run parameters from a TOML file with sections [read], [scan], [pick], [interval]."""
+    """Read run parameters from a TOML file with sections [read], [scan], [pick], [interval],
+    [condition]."""
     try:
         with open(path, "rb") as fh:
             data = tomllib.load(fh)
