@@ -243,11 +243,12 @@ def test_stretch_mute_is_the_scans_rule():
         assert np.array_equal(live.astype(bool)[clear], ((stretch <= s) & inside)[clear])
 
 
-def test_nmo_bits_do_not_depend_on_threads():
+def test_nmo_bits_do_not_depend_on_threads(monkeypatch):
     rng = np.random.default_rng(5)
-    offsets = np.arange(100.0, 3000.0, 25.0)
-    data = rng.standard_normal((offsets.size, 800)).astype(np.float32)
-    v = np.linspace(1500.0, 3500.0, 800)
+    offsets = np.arange(100.0, 3000.0, 10.0)
+    data = rng.standard_normal((offsets.size, 1000)).astype(np.float32)
+    assert data.size >= velspec.nmo.PARALLEL_SAMPLES      # the parallel kernel
+    v = np.linspace(1500.0, 3500.0, 1000)
     before = numba.get_num_threads()
     try:
         numba.set_num_threads(1)
@@ -256,7 +257,9 @@ def test_nmo_bits_do_not_depend_on_threads():
         many = nmo_stack(data, offsets, 0.004, 0.0, v)
     finally:
         numba.set_num_threads(before)
-    assert all(np.array_equal(a, b) for a, b in zip(one, many))
+    monkeypatch.setattr(velspec.nmo, "PARALLEL_SAMPLES", data.size + 1)   # the one-thread kernel
+    serial = nmo_stack(data, offsets, 0.004, 0.0, v)
+    assert all(np.array_equal(a, b) and np.array_equal(a, c) for a, b, c in zip(one, many, serial))
 
 
 def stack_snr(stack, truth, result, f=25.0):

@@ -279,9 +279,11 @@ def draw_field(ax, result: LineAnalysis, values: np.ndarray, *, label: str, cmap
         ax.plot([], [], color="white", lw=1.0, label="Dix forced into bounds",
                 path_effects=[patheffects.Stroke(linewidth=2.4, foreground="black"), patheffects.Normal()])
     if picks:
-        use = result.used
+        # on a long line every CMP's picks would merge into lines: show those of every n-th CMP
+        every = max(1, int(np.ceil(cmp.size / 150)))
+        use = result.used & np.isin(result.picks["cmp"], cmp[::every])
         ax.plot(result.picks["cmp"][use], result.picks["t0"][use], "o", ms=2.2, mfc="white", mec="black", mew=0.3,
-                ls="none", label="used picks")
+                ls="none", label="used picks" + (f" (every {every}th CMP)" if every > 1 else ""))
     if outliers:
         bad = (result.picks["flags"] & int(Flag.lateral_outlier)) != 0
         if bad.any():
@@ -314,9 +316,15 @@ def draw_quality(ax_grade, ax_counts, result: LineAnalysis) -> None:
     cmp = result.cmp
     if "quality" in result.qc:
         q = np.asarray(result.qc["quality"], dtype=np.int64)
-        colours = np.array([PALETTE["green"], PALETTE["orange"], PALETTE["vermillion"]])
-        ax_grade.bar(cmp, np.ones(cmp.size), bottom=q - 0.5, width=1.0, color=colours[np.clip(q, 0, 2)],
-                     edgecolor="none")
+        colours = (PALETTE["green"], PALETTE["orange"], PALETTE["vermillion"])
+        # one collection of runs per grade (not a bar per CMP: thousands of patches draw slowly)
+        edges = np.concatenate(([cmp[0] - 0.5], 0.5 * (cmp[1:] + cmp[:-1]), [cmp[-1] + 0.5]))
+        for grade in range(3):
+            hit = np.concatenate(([0], (q == grade).astype(np.int8), [0]))
+            starts, stops = np.flatnonzero(np.diff(hit) == 1), np.flatnonzero(np.diff(hit) == -1)
+            if starts.size:
+                ax_grade.broken_barh(list(zip(edges[starts], edges[stops] - edges[starts])), (grade - 0.45, 0.9),
+                                     facecolors=colours[grade], linewidth=0)
         counts = np.bincount(q, minlength=3)
         ax_grade.set_title(f"CMP quality: {counts[0]} good, {counts[1]} fair, {counts[2]} poor", fontsize=10,
                            loc="left")
@@ -325,22 +333,30 @@ def draw_quality(ax_grade, ax_counts, result: LineAnalysis) -> None:
     ax_grade.set_ylabel("quality")
     ax_grade.set_xlim(cmp[0] - 0.5, cmp[-1] + 0.5)
 
-    rows = np.searchsorted(cmp, result.picks["cmp"])
-    used = result.used
-    ax_counts.step(cmp, np.bincount(rows[used], minlength=cmp.size), where="mid", color="0.55", lw=1.6,
-                   label="picks used")
+    # a long line is summed over bins of n CMPs (and shown per CMP), else the curves are spikes
+    n = max(1, int(np.ceil(cmp.size / 250)))
+    bins = np.arange(cmp.size) // n
+    nbin = int(bins[-1]) + 1
+    width = np.bincount(bins, minlength=nbin)
+    centre = np.bincount(bins, weights=cmp, minlength=nbin) / width
+    rows = bins[np.searchsorted(cmp, result.picks["cmp"])]
+
+    def per_cmp(sel):
+        return np.bincount(rows[sel], minlength=nbin) / width
+
+    ax_counts.step(centre, per_cmp(result.used), where="mid", color="0.55", lw=1.6, label="picks used")
     for k, flag in enumerate(Flag):
         has = (result.picks["flags"] & int(flag)) != 0
         if has.any():
-            ax_counts.step(cmp, np.bincount(rows[has], minlength=cmp.size), where="mid",
-                           color=_FLAG_COLOURS[k % len(_FLAG_COLOURS)], lw=1.0, label=flag.name.replace("_", " "))
+            ax_counts.step(centre, per_cmp(has), where="mid", color=_FLAG_COLOURS[k % len(_FLAG_COLOURS)], lw=1.0,
+                           label=flag.name.replace("_", " "))
     if "forced_count" in result.qc and np.any(result.qc["forced_count"]):
-        ax_counts.step(cmp, result.qc["forced_count"], where="mid", color="black", lw=1.0, ls="--",
-                       label="Dix intervals forced")
+        forced = np.bincount(bins, weights=result.qc["forced_count"], minlength=nbin) / width
+        ax_counts.step(centre, forced, where="mid", color="black", lw=1.0, ls="--", label="Dix intervals forced")
     ax_counts.set_xlim(cmp[0] - 0.5, cmp[-1] + 0.5)
     ax_counts.set_ylim(bottom=0)
     ax_counts.set_xlabel("CMP")
-    ax_counts.set_ylabel("picks per CMP (count)")
+    ax_counts.set_ylabel("picks per CMP (count)" if n == 1 else f"picks per CMP (count, mean over {n} CMPs)")
     ax_counts.grid(True, lw=0.3, color="0.85")
     ax_counts.legend(loc="upper left", bbox_to_anchor=(1.005, 1.0), fontsize=7, frameon=False)
 
