@@ -85,6 +85,9 @@ def test_sections_round_trip_through_segyio_at_rev1_byte_positions(made, exporte
     assert raw_header_int(path, 3225, 2) == 5 and raw_header_int(path, 3255, 2) == 1
     assert raw_header_int(path, 3501, 2) == 0x0100          # rev 1.0
     assert raw_header_int(path, 21, 4, trace=3) == r.cmp[3]
+    # samples: big-endian IEEE float32 (format code 5) right after the 240-byte trace header
+    first = np.frombuffer(open(path, "rb").read()[3600 + 240: 3600 + 240 + 4 * nsamp], dtype=">f4")
+    assert np.array_equal(first, values[0])
     # rev 1 textual header: 3200 bytes of EBCDIC, 40 lines, what the values are and the caution
     text = open(path, "rb").read()[:3200].decode("cp037")
     assert text.startswith("C 1 ") and "C39 SEG Y REV1" in text and "C40 END TEXTUAL HEADER" in text
@@ -363,6 +366,15 @@ def test_existing_output_needs_force_and_a_foreign_folder_is_never_replaced(made
     assert_user_error(status, err, "not written by velspec")
     assert [p.name for p in out.iterdir()] == ["mine.txt"] and (out / "mine.txt").read_text() == "keep me"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out"]
+
+
+def test_a_line_with_another_checksum_but_the_same_cmps_and_axis_is_stacked_with_a_warning(made, tmp_path, capsys):
+    other = tmp_path / "reprocessed.sgy"
+    make_line(other, LineSpec(ncmp=8, snr=3.0, nsamples=NSAMPLES, seed=9))   # same geometry, other noise
+    status, _, err = run(["export", made["path"], "--out", tmp_path / "p", "--line", other, "--quiet"], capsys)
+    assert status == 0
+    assert [ln for ln in err.splitlines() if ln.startswith("velspec: warning:")] and "checksum" in err
+    assert (tmp_path / "p" / "stack.sgy").is_file()
 
 
 def test_a_failure_midway_leaves_no_folder(made, tmp_path, monkeypatch):
