@@ -9,6 +9,8 @@ Every command is one call here::
     velspec.write_picks("picks.csv", result)                         # velspec picks
     revised = velspec.revise_result("line.h5", edits="edits.csv")     # velspec revise
     check = velspec.crosscheck_line("line.sgy", result)              # t^2-x^2 cross-check
+    velspec.export_result("line.h5", "products", line="line.sgy")    # velspec export
+    velspec.report_result("line.h5", "report")                       # velspec report
 
 The data flow is read (``velspec.io``) -> scan (``velspec.scan``) -> pick (``velspec.pick``) ->
 line pass and interval velocities (``velspec.linepass``, ``velspec.interval``) -> write
@@ -37,6 +39,10 @@ _PUBLIC = {
     "pick_panel": "velspec.pick",
     "survey_line": "velspec.inspect",
     "run_demo": "velspec.demo",
+    "export_result": "velspec.export",
+    "report_result": "velspec.report",
+    "nmo_correct": "velspec.nmo",
+    "nmo_stack": "velspec.nmo",
     "RunParams": "velspec.params",
     "LineAnalysis": "velspec.result",
     "PICK_DTYPE": "velspec.result",

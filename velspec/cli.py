@@ -94,6 +94,41 @@ def _build_parser() -> argparse.ArgumentParser:
     demo.add_argument("--out", default="velspec-demo", metavar="DIR", help="folder to create (default velspec-demo)")
     _work_options(demo, force_help="replace an existing folder")
 
+    exp = sub.add_parser("export", help="write the velocity fields as SEG-Y sections and CSV functions",
+                         description="Writes post-stack SEG-Y sections of the stacking and interval velocity "
+                                     "(time and depth), a smoothed field for migration and CSV velocity functions "
+                                     "into a folder, from the result alone; with --line also the NMO-corrected "
+                                     "stack of the line. README.txt in the folder lists the files.",
+                         epilog=CAUTION)
+    exp.add_argument("result", metavar="RESULT.h5", help="result of velspec run or revise")
+    exp.add_argument("--out", required=True, metavar="DIR", help="folder to create")
+    exp.add_argument("--line", metavar="LINE.sgy", help="the prestack line of the result: adds its NMO-corrected stack")
+    exp.add_argument("--cmp", type=int, nargs="+", metavar="N", default=[],
+                     help="also write the NMO-corrected gathers of these CMPs (needs --line)")
+    exp.add_argument("--smooth-time", type=float, metavar="S",
+                     help="standard deviation in t0 of the smoothing for migration, s (default 0.1)")
+    exp.add_argument("--smooth-cmps", type=float, metavar="N",
+                     help="standard deviation along the line of the smoothing for migration, CMPs (default 10)")
+    exp.add_argument("--csv-step", type=float, metavar="S", help="time step of functions.csv, s (default 0.05)")
+    exp.add_argument("--force", action="store_true", help="replace an existing folder written by velspec")
+    exp.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    exp.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+
+    rep = sub.add_parser("report", help="write QC pictures and one HTML page for a result",
+                         description="Writes the QC pictures of a result (PNG: coherence panels, velocity fields "
+                                     "with the flagged places, quality along the line; with --line a gather before "
+                                     "and after NMO and the stack) and index.html, which gathers them with summary "
+                                     "numbers and the run's parameters.",
+                         epilog=CAUTION)
+    rep.add_argument("result", metavar="RESULT.h5", help="result of velspec run or revise")
+    rep.add_argument("--out", required=True, metavar="DIR", help="folder to create")
+    rep.add_argument("--line", metavar="LINE.sgy", help="the prestack line of the result: adds gathers and the stack")
+    rep.add_argument("--cmp", type=int, nargs="+", metavar="N", default=[],
+                     help="CMPs to show (their kept coherence panels; with --line their gathers)")
+    rep.add_argument("--force", action="store_true", help="replace an existing folder written by velspec")
+    rep.add_argument("--quiet", action="store_true", help="no progress bar or summary")
+    rep.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+
     ins = sub.add_parser("inspect", help="survey the headers of a line before a long run",
                          description="Traces, CMP range, fold, offsets, sample interval, byte positions "
                                      "used, and warnings for anything odd.")
@@ -109,11 +144,12 @@ def main(argv: list[str] | None = None) -> int:
     try:
         args = _build_parser().parse_args(argv)
         if args.command is None:
-            raise UsageError("a command is needed: run, demo, inspect, revise or picks (see velspec --help)")
+            raise UsageError("a command is needed: run, demo, inspect, revise, picks, export or report "
+                             "(see velspec --help)")
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", UserWarning)
             commands = {"run": _cmd_run, "demo": _cmd_demo, "inspect": _cmd_inspect, "revise": _cmd_revise,
-                        "picks": _cmd_picks}
+                        "picks": _cmd_picks, "export": _cmd_export, "report": _cmd_report}
             status = commands[args.command](args)
         for w in caught:
             if issubclass(w.category, UserWarning):
@@ -208,6 +244,36 @@ def _cmd_picks(args) -> int:
     out = Path(args.out)
     _check_output_file(out, args.force)
     write_picks(out, read_result(args.result), force=args.force)
+    return EXIT_OK
+
+
+def _check_product_inputs(args) -> None:
+    if not Path(args.result).is_file():
+        raise UsageError(f"{args.result}: no such file; give the result of velspec run")
+    if args.line is not None and not Path(args.line).is_file():
+        raise UsageError(f"{args.line}: no such file; give the prestack SEG-Y line of the result")
+
+
+def _cmd_export(args) -> int:
+    from .export import export_result
+
+    _check_product_inputs(args)
+    files = export_result(args.result, args.out, line=args.line, cmps=args.cmp, smooth_time=args.smooth_time,
+                          smooth_cmps=args.smooth_cmps, csv_step=args.csv_step, force=args.force,
+                          progress=_progress(args.quiet, "stacking"))
+    if not args.quiet:
+        print(f"velspec: wrote {args.out} ({len(files)} files; README.txt lists them)\n{CAUTION}", file=sys.stderr)
+    return EXIT_OK
+
+
+def _cmd_report(args) -> int:
+    from .report import report_result
+
+    _check_product_inputs(args)
+    page = report_result(args.result, args.out, line=args.line, cmps=args.cmp, force=args.force,
+                         progress=_progress(args.quiet, "stacking"))
+    if not args.quiet:
+        print(f"velspec: wrote {page}\n{CAUTION}", file=sys.stderr)
     return EXIT_OK
 
 

@@ -590,3 +590,33 @@ def _finite_positive(x) -> bool:
 
 def _finite_nonneg(x) -> bool:
     return isinstance(x, (int, float)) and math.isfinite(x) and x >= 0
+
+
+@dataclass(frozen=True)
+class ProductParams:
+    """How ``velspec export`` shapes its products (not stored in results: they come after the run).
+
+    Attributes
+    ----------
+    smooth_time : float
+        Standard deviation in t0 of the Gaussian that smooths the field for migration, s
+        (default 0.1).
+    smooth_cmps : float
+        Its standard deviation along the line, in CMPs (default 10).
+    csv_step : float
+        Time step of the CSV velocity functions on a regular grid, s, rounded to a whole number
+        of samples (default 0.05).
+    """
+
+    smooth_time: float = 0.1
+    smooth_cmps: float = 10.0
+    csv_step: float = 0.05
+
+    def validate(self) -> ProductParams:
+        _check(_finite_nonneg(self.smooth_time) and self.smooth_time <= 10,
+               f"smooth_time (--smooth-time) must be in [0, 10] s, got {self.smooth_time}")
+        _check(_finite_nonneg(self.smooth_cmps) and self.smooth_cmps <= 10000,
+               f"smooth_cmps (--smooth-cmps) must be in [0, 10000] CMPs, got {self.smooth_cmps}")
+        _check(_finite_positive(self.csv_step) and self.csv_step <= 10,
+               f"csv_step (--csv-step) must be in (0, 10] s, got {self.csv_step}")
+        return self
