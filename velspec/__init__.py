@@ -9,6 +9,8 @@ Every command is one call here::
     velspec.write_picks("picks.csv", result)                         # velspec picks
     revised = velspec.revise_result("line.h5", edits="edits.csv")     # velspec revise
     check = velspec.crosscheck_line("line.sgy", result)              # t^2-x^2 cross-check
+    report = velspec.compare_results("new.h5", "line.h5", rtol=1e-3)  # velspec compare
+    velspec.write_config("line.toml", result.params)                 # velspec config
 
 The data flow is read (``velspec.io``) -> scan (``velspec.scan``) -> pick (``velspec.pick``) ->
 line pass and interval velocities (``velspec.linepass``, ``velspec.interval``) -> write
@@ -37,6 +39,12 @@ _PUBLIC = {
     "pick_panel": "velspec.pick",
     "survey_line": "velspec.inspect",
     "run_demo": "velspec.demo",
+    "compare_results": "velspec.compare",
+    "ComparisonReport": "velspec.compare",
+    "CompareParams": "velspec.compare",
+    "to_toml": "velspec.config",
+    "write_config": "velspec.config",
+    "load_toml": "velspec.params",
     "RunParams": "velspec.params",
     "LineAnalysis": "velspec.result",
     "PICK_DTYPE": "velspec.result",

@@ -8,6 +8,7 @@ Units are SI: seconds, metres, metres per second.
 from __future__ import annotations
 
 import dataclasses
+import difflib
 import json
 import math
 import tomllib
@@ -382,17 +383,36 @@ def load_toml(path: str | Path) -> RunParams:
         raise ParameterError(f"config file {path} is not valid TOML: {exc}") from None
     try:
         return RunParams.from_dict(data)
-    except TypeError as exc:
+    except (TypeError, ParameterError) as exc:
         raise ParameterError(f"config file {path}: {exc}") from None
 
 
 def _known(kind, section: dict, where: str) -> dict:
     names = {f.name for f in dataclasses.fields(kind)}
-    unknown = sorted(set(section) - names)
+    unknown = sorted(set(section) - names, key=str)
     if unknown:
-        raise ParameterError(f"unknown parameter(s) in {where}: {', '.join(unknown)}; "
-                             f"known: {', '.join(sorted(names))}")
+        place = "at the top level" if where == "top level" else f"in [{where}]"
+        hints = []
+        for key in unknown[:3]:
+            near = difflib.get_close_matches(str(key), sorted(names), n=1, cutoff=0.6)
+            home = _home_of(str(key))
+            hint = (f"did you mean {near[0]!r}?" if near else
+                    ("it belongs at the top level" if home == "top level" else f"it belongs in [{home}]")
+                    if home and home != where else f"known: {', '.join(sorted(names))}")
+            hints.append(f"{str(key)!r} ({hint})")
+        more = f" and {len(unknown) - 3} more" if len(unknown) > 3 else ""
+        raise ParameterError(f"unknown parameter {place}: {', '.join(hints)}{more}")
     return section
+
+
+def _home_of(key: str) -> str:
+    """The section that has a parameter named ``key``, for a key put in the wrong one."""
+    sections = {"read": ReadParams, "read.headers": HeaderBytes, "scan": ScanParams, "pick": PickParams,
+                "interval": IntervalParams, "top level": RunParams}
+    for where, kind in sections.items():
+        if key in {f.name for f in dataclasses.fields(kind)}:
+            return where
+    return ""
 
 
 def _check(ok: bool, message: str) -> None:
