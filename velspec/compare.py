@@ -113,9 +113,10 @@ class FieldDifference:
 class PickDifference:
     """Picks matched CMP by CMP (nearest t0 within the match window, one to one).
 
-    ``added`` are picks only in B, ``removed`` only in A, ``moved`` matched picks whose t0 or
-    stacking velocity changed beyond the tolerance, ``flags_changed`` matched picks whose flags
-    differ (the bits gained and lost named as in :class:`velspec.Flag`).
+    Changes are told from the reference B to A: ``added`` are picks only A has, ``removed``
+    picks only B has, ``moved`` matched picks whose t0 or stacking velocity differ beyond the
+    tolerance, ``flags_changed`` matched picks whose flags differ (the bits A ``gained`` and
+    ``lost``, named as in :class:`velspec.Flag`).
     """
 
     matched: int = 0
@@ -227,14 +228,14 @@ class ComparisonReport:
             if len(f.outside) > limit:
                 lines.append(f"      ... and {len(f.outside) - limit} more CMP(s)")
         p = self.picks
-        lines.append(f"  picks            {p.matched} matched, {len(p.added)} added, {len(p.removed)} removed, "
+        lines.append(f"  picks (B -> A)   {p.matched} matched, {len(p.added)} added, {len(p.removed)} removed, "
                      f"{len(p.moved)} moved, {len(p.flags_changed)} with other flags")
         for kind, rows in (("added", p.added), ("removed", p.removed)):
             for r in rows[:limit]:
                 lines.append(f"      {kind}: CMP {r['cmp']} t0 {r['t0']:.3f} s, {r['vrms']:.0f} m/s")
         for r in p.moved[:limit]:
-            lines.append(f"      moved: CMP {r['cmp']} t0 {r['t0_a']:.3f} -> {r['t0_b']:.3f} s, "
-                         f"{r['vrms_a']:.0f} -> {r['vrms_b']:.0f} m/s")
+            lines.append(f"      moved: CMP {r['cmp']} t0 {r['t0_b']:.3f} -> {r['t0_a']:.3f} s, "
+                         f"{r['vrms_b']:.0f} -> {r['vrms_a']:.0f} m/s (B -> A)")
         for r in p.flags_changed[:limit]:
             lines.append(f"      flags: CMP {r['cmp']} t0 {r['t0']:.3f} s: +{','.join(r['gained']) or '-'} "
                          f"-{','.join(r['lost']) or '-'}")
@@ -530,12 +531,12 @@ def _compare_picks(pa: np.ndarray, pb: np.ndarray, params: CompareParams) -> Pic
             fa, fb = int(x["flags"]), int(y["flags"])
             if fa != fb:
                 out.flags_changed.append({"cmp": int(c), "t0": float(y["t0"]), "vrms": float(y["vrms"]),
-                                          "flags_a": fa, "flags_b": fb, "gained": _bit_names(fb & ~fa),
-                                          "lost": _bit_names(fa & ~fb)})
+                                          "flags_a": fa, "flags_b": fb, "gained": _bit_names(fa & ~fb),
+                                          "lost": _bit_names(fb & ~fa)})
         for i in sorted(set(range(ra.size)) - taken_a):
-            out.removed.append(_pick_row(c, ra[i]))
+            out.added.append(_pick_row(c, ra[i]))
         for j in sorted(set(range(rb.size)) - taken_b):
-            out.added.append(_pick_row(c, rb[j]))
+            out.removed.append(_pick_row(c, rb[j]))
     return out
 
 
