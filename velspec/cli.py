@@ -218,6 +218,13 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("velspec: error: interrupted; no output was written", file=sys.stderr)
         return EXIT_USAGE
+    except MemoryError:
+        if debug:
+            raise
+        # outputs are written as .partial and removed on any exception, so nothing is left half-written
+        print("velspec: error: out of memory; no output was written. Free memory, raise the limit "
+              "(ulimit -v), or lower block and keep_spectra in the configuration", file=sys.stderr)
+        return EXIT_USAGE
     except BrokenPipeError:
         # The reader of our output went away (e.g. `| head`); the work itself is complete.
         os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())

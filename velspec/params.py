@@ -351,9 +351,10 @@ class RunParams:
         stages = {"read": ReadParams, "scan": ScanParams, "pick": PickParams, "interval": IntervalParams}
         kwargs = {}
         for name, kind in stages.items():
-            section = dict(data.pop(name, {}) or {})
+            section = dict(_table(data.pop(name, {}) or {}, name))
             if name == "read" and "headers" in section:
-                section["headers"] = HeaderBytes(**_known(HeaderBytes, section["headers"], "read.headers"))
+                headers = _table(section["headers"], "read.headers")
+                section["headers"] = HeaderBytes(**_known(HeaderBytes, headers, "read.headers"))
             kwargs[name] = kind(**_known(kind, section, name))
         kwargs.update(_known(cls, data, "top level"))
         return cls(**kwargs)
@@ -402,7 +403,34 @@ def _known(kind, section: dict, where: str) -> dict:
             hints.append(f"{str(key)!r} ({hint})")
         more = f" and {len(unknown) - 3} more" if len(unknown) > 3 else ""
         raise ParameterError(f"unknown parameter {place}: {', '.join(hints)}{more}")
+    # a file can hold any TOML type; say which key has the wrong one before validation compares it
+    types = {f.name: f.type for f in dataclasses.fields(kind)}
+    for key, value in section.items():
+        want = _TYPES.get(types[key])
+        if want is not None and not want[0](value):
+            where_key = key if where == "top level" else f"{where}.{key}"
+            raise ParameterError(f"{where_key} must be {want[1]}, got {value!r}")
     return section
+
+
+def _is_number(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+# the annotation of a field -> (test, what to say); others (sub-tables) are checked by their own class
+_TYPES = {
+    "float": (_is_number, "a number"),
+    "int": (lambda v: isinstance(v, int) and not isinstance(v, bool), "a whole number"),
+    "str": (lambda v: isinstance(v, str), "a text in quotes"),
+    "tuple": (lambda v: isinstance(v, (list, tuple)), "a list of rows [[t0, vmin, vmax], ...]"),
+}
+
+
+def _table(value, where: str) -> dict:
+    """A section must be a table of parameters, not a value (``scan = 3`` in a TOML file)."""
+    if not isinstance(value, dict):
+        raise ParameterError(f"[{where}] must be a table of parameters (a [{where}] section), got {value!r}")
+    return value
 
 
 def _home_of(key: str) -> str:
