@@ -237,8 +237,8 @@ class ComparisonReport:
             lines.append(f"      moved: CMP {r['cmp']} t0 {r['t0_b']:.3f} -> {r['t0_a']:.3f} s, "
                          f"{r['vrms_b']:.0f} -> {r['vrms_a']:.0f} m/s (B -> A)")
         for r in p.flags_changed[:limit]:
-            lines.append(f"      flags: CMP {r['cmp']} t0 {r['t0']:.3f} s: +{','.join(r['gained']) or '-'} "
-                         f"-{','.join(r['lost']) or '-'}")
+            lines.append(f"      flags: CMP {r['cmp']} t0 {r['t0']:.3f} s: gained {','.join(r['gained']) or 'none'}, "
+                         f"lost {','.join(r['lost']) or 'none'}")
         for title, rows in (("parameter", self.parameters), ("provenance", self.provenance)):
             for r in rows[:limit * 4]:
                 lines.append(f"  {title} {r['key']}: {r['a']!r} (A) vs {r['b']!r} (B)")
