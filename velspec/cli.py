@@ -47,7 +47,7 @@ def _work_options(parser: argparse.ArgumentParser, force_help: str) -> None:
     parser.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
 
 
-def _build_parser() -> argparse.ArgumentParser:
+def build_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="velspec", description="First-pass velocity analysis of prestack 2D SEG-Y lines.",
                 formatter_class=_RAW, epilog=_epilog(
                     "velspec demo                                  # a synthetic line, analysed, in velspec-demo/",
@@ -190,6 +190,9 @@ def _build_parser() -> argparse.ArgumentParser:
     ins.add_argument("line", metavar="LINE.sgy", help="prestack 2D line, SEG-Y rev 1 or rev 2.0")
     ins.add_argument("--config", metavar="FILE.toml", help="header byte positions in [read.headers]")
     ins.add_argument("--debug", action="store_true", help=argparse.SUPPRESS)
+    for parser in (p, *sub.choices.values()):
+        # the raw formatter keeps the examples' layout; descriptions are filled here instead
+        parser.description = textwrap.fill(" ".join(parser.description.split()), 92)
     return p
 
 
@@ -197,7 +200,7 @@ def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else argv
     debug = "--debug" in argv
     try:
-        args = _build_parser().parse_args(argv)
+        args = build_parser().parse_args(argv)
         if args.command is None:
             raise UsageError("a command is needed: run, demo, inspect, revise, picks, compare or config "
                              "(see velspec --help)")
