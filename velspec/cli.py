@@ -98,8 +98,8 @@ def build_parser() -> argparse.ArgumentParser:
                                      "from a result file, without rescanning: with --picks, a person's\npicks "
                                      "replace or guide the automatic ones at the CMPs they name.",
                          epilog=_epilog(
-                             "velspec picks line.h5 --out picks.csv        # then edit picks.csv",
                              "velspec revise line.h5 --out revised.h5 --picks picks.csv",
+                             "velspec picks line.h5 --out picks.csv        # the CSV to edit, made first",
                              "velspec revise line.h5 --out guided.h5 --picks picks.csv --edit-mode guide",
                              "velspec revise line.h5 --out wider.h5 --config wider-vint.toml",
                              "velspec compare revised.h5 line.h5           # what the edits changed"))
