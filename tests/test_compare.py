@@ -235,3 +235,23 @@ def test_same_bits_for_any_thread_count_and_block_size(line, result, threads, bl
     for column in other.picks.dtype.names:
         assert np.array_equal(other.picks[column], result.picks[column], equal_nan=True), column
     assert np.array_equal(other.spectra.coherence, result.spectra.coherence)
+
+
+def test_a_persons_picks_pair_with_the_automatic_ones_they_replace(result):
+    # velspec revise keeps the replaced automatic picks beside the person's, at the same times
+    cmp0 = int(result.cmp[1])
+    p = result.picks.copy()
+    mine = np.flatnonzero((p["cmp"] == cmp0) & result.used)
+    person = p[mine].copy()
+    person["flags"] = int(Flag.edited)
+    person["t0"] = np.round(person["t0"], 6)          # as a CSV keeps them
+    person["vrms"] = np.round(person["vrms"], 2)
+    person["vrms"][-1] *= np.float32(1.03)            # the one the person moved
+    p["flags"][mine] |= int(Flag.replaced)
+    a = np.sort(np.concatenate([p, person]), order=["cmp", "t0"])
+    report = compare_results(result.replace(picks=a), result)
+    picks = report.picks
+    assert [r["t0_b"] for r in picks.moved] == pytest.approx([result.picks["t0"][mine[-1]]])
+    assert all(r["gained"] == ["edited"] for r in picks.flags_changed) and len(picks.flags_changed) == mine.size
+    assert len(picks.added) == mine.size and all(r["flag_names"] == ["replaced"] for r in picks.added)
+    assert picks.removed == []

@@ -27,7 +27,7 @@ import numpy as np
 
 from .caution import CAUTION
 from .errors import InputError, ParameterError
-from .flags import Flag
+from .flags import Flag, used_mask
 from .result import LineAnalysis
 
 
@@ -511,9 +511,14 @@ def _compare_picks(pa: np.ndarray, pb: np.ndarray, params: CompareParams) -> Pic
         pairs = []
         if ra.size and rb.size:
             dist = np.abs(ra["t0"][:, None] - rb["t0"][None, :])
+            dv = np.abs(ra["vrms"][:, None].astype(np.float64) - rb["vrms"][None, :])
+            # a used pick pairs with a used one first (a person's pick beside the one it replaced)
+            other_use = used_mask(ra["flags"])[:, None] != used_mask(rb["flags"])[None, :]
             i, j = np.nonzero(dist <= params.match_window)
-            # nearest first, then in table order: one deterministic one-to-one matching
-            for k in np.lexsort((j, i, dist[i, j])):
+            # nearest in t0 (to a microsecond, as a CSV keeps it), alike in use, nearest in
+            # velocity, then table order: one deterministic one-to-one matching
+            near = np.round(dist[i, j] * 1e6)
+            for k in np.lexsort((j, i, dv[i, j], other_use[i, j], near)):
                 pairs.append((int(i[k]), int(j[k])))
         taken_a, taken_b = set(), set()
         for i, j in pairs:
@@ -537,6 +542,9 @@ def _compare_picks(pa: np.ndarray, pb: np.ndarray, params: CompareParams) -> Pic
             out.added.append(_pick_row(c, ra[i]))
         for j in sorted(set(range(rb.size)) - taken_b):
             out.removed.append(_pick_row(c, rb[j]))
+    out.moved.sort(key=lambda r: (r["cmp"], r["t0_b"]))
+    for rows in (out.added, out.removed, out.flags_changed):
+        rows.sort(key=lambda r: (r["cmp"], r["t0"]))
     return out
 
 
