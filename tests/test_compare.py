@@ -46,11 +46,11 @@ def test_identical_files_and_files_differing_only_in_creation_time_pass(stored, 
     with h5py.File(again, "r") as h5:
         assert h5.attrs["created"] != read_result(stored).attrs["created"]
     for other in (stored, again):
-        report = compare_results(stored, other, rtol=0, atol=0)
+        report = compare_results(stored, other, params=CompareParams.exact())
         assert report.passed, report.summary()
         assert report.provenance == [] and report.parameters == []
         assert report.picks.matched == result.picks.size
-        status, out, err = run(["compare", stored, other, "--rtol", "0", "--atol", "0"], capsys)
+        status, out, err = run(["compare", stored, other, "--exact"], capsys)
         assert status == 0 and "within tolerance" in out and err == ""
 
 
@@ -209,6 +209,7 @@ def test_bad_input_exits_2_and_writes_nothing(stored, tmp_path, capsys):
         (["compare", stored, other_h5, "--report", report], ("not a velspec result",)),
         (["compare", stored, tmp_path, "--report", report], ("not a file",)),
         (["compare", stored, stored, "--rtol", "-1", "--report", report], ("rtol", ">= 0")),
+        (["compare", stored, stored, "--exact", "--atol", "1", "--report", report], ("--exact",)),
         (["compare", stored, stored, "--atol", "nan", "--report", report], ("atol",)),
         (["compare", stored, "--report", report], ("required",)),
         (["compare", stored, stored, "--report", report, "--junit", report], ("different files",)),
@@ -225,7 +226,7 @@ def test_bad_input_exits_2_and_writes_nothing(stored, tmp_path, capsys):
 def test_same_bits_for_any_thread_count_and_block_size(line, result, threads, block):
     # common practice, no source: a parallel run must not depend on how the work is split
     other = velspec.run_line(line, {"scan": {"nvel": 60}, "threads": threads, "block": block})
-    report = compare_results(other, result, rtol=0, atol=0, params=CompareParams(t0_atol=0.0))
+    report = compare_results(other, result, params=CompareParams.exact())
     assert report.passed, report.summary()
     keys = {r["key"] for r in report.parameters}
     assert keys <= {"threads", "block"}
@@ -255,3 +256,17 @@ def test_a_persons_picks_pair_with_the_automatic_ones_they_replace(result):
     assert all(r["gained"] == ["edited"] for r in picks.flags_changed) and len(picks.flags_changed) == mine.size
     assert len(picks.added) == mine.size and all(r["flag_names"] == ["replaced"] for r in picks.added)
     assert picks.removed == []
+
+
+def test_exact_finds_what_the_default_tolerance_lets_pass(result, capsys, tmp_path):
+    tiny = result.vrms.copy()
+    tiny[0, 10] = np.nextafter(tiny[0, 10], np.float32(np.inf))   # one float32 step (IEEE 754)
+    a, b = tmp_path / "a.h5", tmp_path / "b.h5"
+    write_result(a, result.replace(vrms=tiny))
+    write_result(b, result)
+    assert compare_results(a, b).passed
+    report = compare_results(a, b, params=CompareParams.exact())
+    assert not report.passed and report.field("vrms").outside_count == 1
+    assert report.field("vrms").outside[0]["cmp"] == result.cmp[0]
+    assert run(["compare", a, b, "--quiet"], capsys)[0] == 0
+    assert run(["compare", a, b, "--exact", "--quiet"], capsys)[0] == 1

@@ -138,13 +138,13 @@ def test_a_result_config_reproduces_the_result(line, tmp_path, capsys):
     status, _, err = run(["run", line, "--out", second, "--quiet", "--config", cfg], capsys)
     assert status == 0, err
     a, b = velspec.read_result(first), velspec.read_result(second)
-    report = velspec.compare_results(second, first, rtol=0, atol=0)
+    report = velspec.compare_results(second, first, params=velspec.CompareParams.exact())
     assert report.passed and report.parameters == [], report.summary()
     for name in ("vrms", "vint", "vint_sigma"):
         assert np.array_equal(getattr(a, name), getattr(b, name), equal_nan=True)
     for column in a.picks.dtype.names:
         assert np.array_equal(a.picks[column], b.picks[column], equal_nan=True)
-    status, _, _ = run(["compare", second, first, "--rtol", "0", "--atol", "0", "--quiet"], capsys)
+    status, _, _ = run(["compare", second, first, "--exact", "--quiet"], capsys)
     assert status == 0
 
 

@@ -141,13 +141,15 @@ def build_parser() -> argparse.ArgumentParser:
                                       "not judged.",
                           epilog=_epilog(
                               "velspec compare new.h5 old.h5",
-                              "velspec compare new.h5 old.h5 --rtol 0 --atol 0          # bit for bit",
+                              "velspec compare new.h5 old.h5 --exact                    # bit for bit",
                               "velspec compare new.h5 old.h5 --rtol 0.01 --junit compare.xml   # for CI",
                               "velspec compare new.h5 old.h5 --report diff.json --picture diff.png --quiet"))
     cmpr.add_argument("a", metavar="A.h5", help="result to check")
     cmpr.add_argument("b", metavar="B.h5", help="reference result")
     cmpr.add_argument("--rtol", type=float, metavar="R", help="relative tolerance, a fraction of |b| (default 0.001)")
     cmpr.add_argument("--atol", type=float, metavar="M/S", help="absolute tolerance of velocities (default 1 m/s)")
+    cmpr.add_argument("--exact", action="store_true",
+                      help="every tolerance zero (fields, times, eta, pick times): the same bits or exit 1")
     cmpr.add_argument("--report", metavar="FILE.json", help="write the whole report as JSON")
     cmpr.add_argument("--junit", metavar="FILE.xml", help="write a JUnit XML report (a testcase per field, "
                                                         "the picks, parameters)")
@@ -166,7 +168,7 @@ def build_parser() -> argparse.ArgumentParser:
                          epilog=_epilog("velspec config line.h5                         # print it",
                                         "velspec config line.h5 --out line.toml",
                                         "velspec run line.sgy --out again.h5 --config line.toml",
-                                        "velspec compare again.h5 line.h5 --rtol 0 --atol 0"))
+                                        "velspec compare again.h5 line.h5 --exact"))
     cfg.add_argument("result", metavar="RESULT.h5", help="result of velspec run or revise")
     cfg.add_argument("--out", metavar="FILE.toml", help="file to write (default: print to stdout)")
     cfg.add_argument("--force", action="store_true", help="overwrite an existing file")
@@ -322,7 +324,7 @@ def _cmd_picks(args) -> int:
 
 
 def _cmd_compare(args) -> int:
-    from .compare import compare_results
+    from .compare import CompareParams, compare_results
 
     outputs = [Path(p) for p in (args.report, args.junit, args.picture) if p]
     for out in outputs:
@@ -333,7 +335,10 @@ def _cmd_compare(args) -> int:
         if not Path(name).is_file():
             raise UsageError(f"{name}: no such file" if not Path(name).exists()
                              else f"{name} is not a file; give a result file (.h5)")
-    report = compare_results(args.a, args.b, rtol=args.rtol, atol=args.atol)
+    if args.exact and (args.rtol is not None or args.atol is not None):
+        raise UsageError("--exact sets every tolerance to zero; give it without --rtol/--atol")
+    params = CompareParams.exact() if args.exact else None
+    report = compare_results(args.a, args.b, rtol=args.rtol, atol=args.atol, params=params)
     if args.report:
         report.write_json(args.report, force=args.force)
     if args.junit:

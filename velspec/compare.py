@@ -63,6 +63,11 @@ class CompareParams:
     t0_atol: float = 0.002
     worst: int = 5
 
+    @classmethod
+    def exact(cls) -> CompareParams:
+        """Every tolerance zero: the same bits or a difference (NaN still equals NaN)."""
+        return cls(rtol=0.0, atol=0.0, atol_time=0.0, atol_eta=0.0, t0_atol=0.0)
+
     def validate(self) -> CompareParams:
         for name in ("rtol", "atol", "atol_time", "atol_eta", "t0_atol"):
             value = getattr(self, name)
