@@ -339,12 +339,12 @@ def _cmd_compare(args) -> int:
         raise UsageError("--exact sets every tolerance to zero; give it without --rtol/--atol")
     params = CompareParams.exact() if args.exact else None
     report = compare_results(args.a, args.b, rtol=args.rtol, atol=args.atol, params=params)
+    if args.picture:   # first: the one that can fail (nothing compared to draw)
+        report.write_picture(args.picture, force=args.force)
     if args.report:
         report.write_json(args.report, force=args.force)
     if args.junit:
         report.write_junit(args.junit, force=args.force)
-    if args.picture:
-        report.write_picture(args.picture, force=args.force)
     if not args.quiet:
         print(report.summary())
     return EXIT_OK if report.passed else EXIT_DIFFERENT
