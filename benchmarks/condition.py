@@ -16,8 +16,17 @@ import time
 
 import numpy as np
 
-from velspec.condition import (agc, apply_top_mute, bandpass, clip_spikes, condition_gather, first_breaks,
-                               fit_first_breaks, spherical_divergence_gain, trace_outliers)
+from velspec.condition import (
+    agc,
+    apply_top_mute,
+    bandpass,
+    clip_spikes,
+    condition_gather,
+    first_breaks,
+    fit_first_breaks,
+    spherical_divergence_gain,
+    trace_outliers,
+)
 from velspec.params import ConditionParams, ScanParams
 from velspec.scan import scan_gather, velocity_axis
 from velspec.synth.layers import reflection_times

@@ -11,6 +11,8 @@ Every command is one call here::
     check = velspec.crosscheck_line("line.sgy", result)              # t^2-x^2 cross-check
     velspec.export_result("line.h5", "products", line="line.sgy")    # velspec export
     velspec.report_result("line.h5", "report")                       # velspec report
+    report = velspec.compare_results("new.h5", "line.h5", rtol=1e-3)  # velspec compare
+    velspec.write_config("line.toml", result.params)                 # velspec config
 
 The data flow is read (``velspec.io``) -> scan (``velspec.scan``) -> pick (``velspec.pick``) ->
 line pass and interval velocities (``velspec.linepass``, ``velspec.interval``) -> write
@@ -43,6 +45,12 @@ _PUBLIC = {
     "report_result": "velspec.report",
     "nmo_correct": "velspec.nmo",
     "nmo_stack": "velspec.nmo",
+    "compare_results": "velspec.compare",
+    "ComparisonReport": "velspec.compare",
+    "CompareParams": "velspec.compare",
+    "to_toml": "velspec.config",
+    "write_config": "velspec.config",
+    "load_toml": "velspec.params",
     "RunParams": "velspec.params",
     "LineAnalysis": "velspec.result",
     "PICK_DTYPE": "velspec.result",

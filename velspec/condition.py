@@ -47,8 +47,8 @@ standard deviation).
 from __future__ import annotations
 
 import functools
+from collections.abc import Sequence
 from dataclasses import asdict, dataclass
-from typing import Sequence
 
 import numpy as np
 from numba import njit

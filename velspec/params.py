@@ -8,6 +8,7 @@ Units are SI: seconds, metres, metres per second.
 from __future__ import annotations
 
 import dataclasses
+import difflib
 import json
 import math
 import tomllib
@@ -533,9 +534,10 @@ class RunParams:
                   "condition": ConditionParams}
         kwargs = {}
         for name, kind in stages.items():
-            section = dict(data.pop(name, {}) or {})
+            section = dict(_table(data.pop(name, {}) or {}, name))
             if name == "read" and "headers" in section:
-                section["headers"] = HeaderBytes(**_known(HeaderBytes, section["headers"], "read.headers"))
+                headers = _table(section["headers"], "read.headers")
+                section["headers"] = HeaderBytes(**_known(HeaderBytes, headers, "read.headers"))
             kwargs[name] = kind(**_known(kind, section, name))
         kwargs.update(_known(cls, data, "top level"))
         return cls(**kwargs)
@@ -566,17 +568,63 @@ def load_toml(path: str | Path) -> RunParams:
         raise ParameterError(f"config file {path} is not valid TOML: {exc}") from None
     try:
         return RunParams.from_dict(data)
-    except TypeError as exc:
+    except (TypeError, ParameterError) as exc:
         raise ParameterError(f"config file {path}: {exc}") from None
 
 
 def _known(kind, section: dict, where: str) -> dict:
     names = {f.name for f in dataclasses.fields(kind)}
-    unknown = sorted(set(section) - names)
+    unknown = sorted(set(section) - names, key=str)
     if unknown:
-        raise ParameterError(f"unknown parameter(s) in {where}: {', '.join(unknown)}; "
-                             f"known: {', '.join(sorted(names))}")
+        place = "at the top level" if where == "top level" else f"in [{where}]"
+        hints = []
+        for key in unknown[:3]:
+            near = difflib.get_close_matches(str(key), sorted(names), n=1, cutoff=0.6)
+            home = _home_of(str(key))
+            hint = (f"did you mean {near[0]!r}?" if near else
+                    ("it belongs at the top level" if home == "top level" else f"it belongs in [{home}]")
+                    if home and home != where else f"known: {', '.join(sorted(names))}")
+            hints.append(f"{str(key)!r} ({hint})")
+        more = f" and {len(unknown) - 3} more" if len(unknown) > 3 else ""
+        raise ParameterError(f"unknown parameter {place}: {', '.join(hints)}{more}")
+    # a file can hold any TOML type; say which key has the wrong one before validation compares it
+    types = {f.name: f.type for f in dataclasses.fields(kind)}
+    for key, value in section.items():
+        want = _TYPES.get(types[key])
+        if want is not None and not want[0](value):
+            where_key = key if where == "top level" else f"{where}.{key}"
+            raise ParameterError(f"{where_key} must be {want[1]}, got {value!r}")
     return section
+
+
+def _is_number(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool)
+
+
+# the annotation of a field -> (test, what to say); others (sub-tables) are checked by their own class
+_TYPES = {
+    "float": (_is_number, "a number"),
+    "int": (lambda v: isinstance(v, int) and not isinstance(v, bool), "a whole number"),
+    "str": (lambda v: isinstance(v, str), "a text in quotes"),
+    "tuple": (lambda v: isinstance(v, (list, tuple)), "a list of rows [[t0, vmin, vmax], ...]"),
+}
+
+
+def _table(value, where: str) -> dict:
+    """A section must be a table of parameters, not a value (``scan = 3`` in a TOML file)."""
+    if not isinstance(value, dict):
+        raise ParameterError(f"[{where}] must be a table of parameters (a [{where}] section), got {value!r}")
+    return value
+
+
+def _home_of(key: str) -> str:
+    """The section that has a parameter named ``key``, for a key put in the wrong one."""
+    sections = {"read": ReadParams, "read.headers": HeaderBytes, "scan": ScanParams, "pick": PickParams,
+                "interval": IntervalParams, "top level": RunParams}
+    for where, kind in sections.items():
+        if key in {f.name for f in dataclasses.fields(kind)}:
+            return where
+    return ""
 
 
 def _check(ok: bool, message: str) -> None:

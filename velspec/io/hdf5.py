@@ -45,7 +45,8 @@ _FIELDS = {
     "qc/vint_forced": ("1", "1 where the physical bounds changed vint by more than 1 m/s"),
     "qc/vint_raw": ("m/s", "unconstrained Dix interval velocity, signed square root (negative: imaginary)"),
     "qc/path": ("m/s", "traced dynamic-programming velocity function on every t0 sample"),
-    "qc/water_velocity": ("m/s", "velocity of the sea floor's hyperbola on the near offsets (or given); NaN where none"),
+    "qc/water_velocity": ("m/s", "velocity of the sea floor's hyperbola on the near offsets (or given); "
+                                 "NaN where none"),
     "qc/water_bottom": ("s", "two-way time of the sea floor found in the data (or given); NaN where none, as on land"),
     "qc/skipped_cmp": ("1", "CMPs left out (fewer than 2 live traces)"),
     "qc/skipped_nan_traces": ("1", "traces with NaN samples in the CMPs left out"),

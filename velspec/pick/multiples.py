@@ -96,7 +96,8 @@ def classify_multiples(picks: np.ndarray, slow: np.ndarray, params,
 def infer_sea_floor(t: np.ndarray, v: np.ndarray, flags: np.ndarray, params) -> tuple | None:
     """(t0, v) of a sea floor that no pick holds, or None.
 
-    Given (``water_bottom`` > 0) it is used. Otherwise it is inferred from its reverberations: when the earliest pick (t1, V1) has a companion at 1.5 t1
+    Given (``water_bottom`` > 0) it is used. Otherwise it is inferred from its
+    reverberations: when the earliest pick (t1, V1) has a companion at 1.5 t1
     with the same velocity, the two are the second and third passes of a water layer whose
     floor at t1 / 2 was too shallow to be seen inside the stretch mute, and no primary could
     keep the stacking velocity unchanged over that interval while the earth below the sea
