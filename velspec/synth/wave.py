@@ -85,6 +85,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import numba
 from numba import njit, prange
 from scipy.signal import resample_poly
 
@@ -354,98 +355,122 @@ def _energy(p, vx, vz, kap, bxx, bzz, ax_v, bx_v, az_v, bz_v, c, erow):
         erow[j] = e
 
 
-@njit(cache=True, nogil=True, parallel=True)
-def _update_v(p, vx, vz, bxx, bzz, ax_v, bx_v, az_v, bz_v, c):
-    """vx, vz from n - 1/2 to n + 1/2: ``v = a v - b (dt / rho h) D p``."""
+@njit(cache=True, nogil=True)
+def _advance_rows(r0, r1, top, free, p, px, pz, vx, vz, P, PX, PZ, VX, VZ, kap, bxx, bzz,
+                  ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c):
+    """One time step of rows [r0, r1): levels n - 1/2, n (lower case) to n + 1/2, n + 1 (upper).
+
+    vz is also made for the 4 rows on each side that the p update needs; a neighbouring block
+    makes the same values from the same inputs, so the blocks need no sync within a step.
+    """
     nzp, nxp = p.shape
     c1, c2, c3, c4 = c[0], c[1], c[2], c[3]
     m = nxp - 8  # inner indices written k + const with k >= 0, so numba needs no wraparound
-    for j in prange(4, nzp - 4):
-        pr, vxr, bxr = p[j], vx[j], bxx[j]
+    if free and r0 <= 4:
+        for k in range(1, 5):  # image of p above the surface (row 4), sign flipped
+            src, dst = p[4 + k], p[4 - k]
+            for i in range(nxp):
+                dst[i] = -src[i]
+    for j in range(r0, r1):
+        pr, vxr, bxr, out = p[j], vx[j], bxx[j], VX[j]
         for k in range(m):
             d = (c1 * (pr[k + 5] - pr[k + 4]) + c2 * (pr[k + 6] - pr[k + 3])
                  + c3 * (pr[k + 7] - pr[k + 2]) + c4 * (pr[k + 8] - pr[k + 1]))
-            vxr[k + 4] = ax_v[k + 4] * vxr[k + 4] - bx_v[k + 4] * bxr[k + 4] * d
-        pm3, pm2, pm1, p1, p2, p3, p4 = p[j - 3], p[j - 2], p[j - 1], p[j + 1], p[j + 2], p[j + 3], p[j + 4]
-        vzr, bzr = vz[j], bzz[j]
+            out[k + 4] = ax_v[k + 4] * vxr[k + 4] - bx_v[k + 4] * bxr[k + 4] * d
+    for j in range(max(4, r0 - 4), min(nzp - 4, r1 + 4)):
+        pm3, pm2, pm1, p0, p1, p2, p3, p4 = (p[j - 3], p[j - 2], p[j - 1], p[j], p[j + 1],
+                                             p[j + 2], p[j + 3], p[j + 4])
+        vzr, bzr, out = vz[j], bzz[j], VZ[j]
         a, b = az_v[j], bz_v[j]
         for k in range(m):
             i = k + 4
-            d = (c1 * (p1[i] - pr[i]) + c2 * (p2[i] - pm1[i]) + c3 * (p3[i] - pm2[i])
+            d = (c1 * (p1[i] - p0[i]) + c2 * (p2[i] - pm1[i]) + c3 * (p3[i] - pm2[i])
                  + c4 * (p4[i] - pm3[i]))
-            vzr[i] = a * vzr[i] - b * bzr[i] * d
-
-
-@njit(cache=True, nogil=True, parallel=True)
-def _update_p(p, px, pz, vx, vz, kap, ax_p, bx_p, az_p, bz_p, c, top):
-    """px, pz, p = px + pz from n to n + 1: ``px = a px - b (dt K / h) Dx vx``, same for z."""
-    nzp, nxp = p.shape
-    c1, c2, c3, c4 = c[0], c[1], c[2], c[3]
-    m = nxp - 8
-    for j in prange(top, nzp - 4):
-        vxr, pxr, kr = vx[j], px[j], kap[j]
+            out[i] = a * vzr[i] - b * bzr[i] * d
+    if free and r0 <= 4:
+        for k in range(1, 5):  # image of vz above the surface, sign kept
+            src, dst = VZ[3 + k], VZ[4 - k]
+            for i in range(nxp):
+                dst[i] = src[i]
+    for j in range(max(top, r0), r1):
+        vxr, pxr, kr, outx = VX[j], px[j], kap[j], PX[j]
         for k in range(m):
             d = (c1 * (vxr[k + 4] - vxr[k + 3]) + c2 * (vxr[k + 5] - vxr[k + 2])
                  + c3 * (vxr[k + 6] - vxr[k + 1]) + c4 * (vxr[k + 7] - vxr[k]))
-            pxr[k + 4] = ax_p[k + 4] * pxr[k + 4] - bx_p[k + 4] * kr[k + 4] * d
-        vm4, vm3, vm2, vm1, v0, v1, v2, v3 = (vz[j - 4], vz[j - 3], vz[j - 2], vz[j - 1], vz[j],
-                                              vz[j + 1], vz[j + 2], vz[j + 3])
-        pzr, pr = pz[j], p[j]
+            outx[k + 4] = ax_p[k + 4] * pxr[k + 4] - bx_p[k + 4] * kr[k + 4] * d
+        vm4, vm3, vm2, vm1, v0, v1, v2, v3 = (VZ[j - 4], VZ[j - 3], VZ[j - 2], VZ[j - 1], VZ[j],
+                                              VZ[j + 1], VZ[j + 2], VZ[j + 3])
+        pzr, outz, outp = pz[j], PZ[j], P[j]
         a, b = az_p[j], bz_p[j]
         for k in range(m):
             i = k + 4
             d = (c1 * (v0[i] - vm1[i]) + c2 * (v1[i] - vm2[i]) + c3 * (v2[i] - vm3[i])
                  + c4 * (v3[i] - vm4[i]))
             u = a * pzr[i] - b * kr[i] * d
-            pzr[i] = u
-            pr[i] = pxr[i] + u
+            outz[i] = u
+            outp[i] = outx[i] + u
 
 
-@njit(cache=True, nogil=True)
 def _run(kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c, src_r, src_c,
-         src_w, q, rec_r, rec_c, rec_w, free, want_energy, rec, energy):
+         src_w, q, rec_r, rec_c, rec_w, free, want_energy, nblock, rec, energy):
     """Leapfrog the staggered-grid equations ``q.size`` steps; record p before each step.
 
     Padded arrays (nz + 8, nx + 8), the surface on row 4 when ``free``; ``kap = dt K / h``,
-    ``bxx``, ``bzz = dt / (rho h)`` at the vx, vz nodes; ``c`` the four stencil weights.
+    ``bxx``, ``bzz = dt / (rho h)`` at the vx, vz nodes; ``c`` the four stencil weights. Each
+    step is one parallel region over blocks of rows (one per thread), the fields double
+    buffered so that every block reads only the previous levels.
     """
     nzp, nxp = kap.shape
-    p = np.zeros((nzp, nxp), dtype=np.float32)
-    px = np.zeros((nzp, nxp), dtype=np.float32)
-    pz = np.zeros((nzp, nxp), dtype=np.float32)
-    vx = np.zeros((nzp, nxp), dtype=np.float32)
-    vz = np.zeros((nzp, nxp), dtype=np.float32)
+    p = np.zeros((2, nzp, nxp), dtype=np.float32)
+    px = np.zeros((2, nzp, nxp), dtype=np.float32)
+    pz = np.zeros((2, nzp, nxp), dtype=np.float32)
+    vx = np.zeros((2, nzp, nxp), dtype=np.float32)
+    vz = np.zeros((2, nzp, nxp), dtype=np.float32)
     erow = np.zeros(nzp, dtype=np.float64)
     top = 5 if free else 4  # first row of p updated; row 4 is the free surface (p = 0)
+    rows = nzp - 8
+    nblock = max(1, min(nblock, rows // 8))  # the top block must hold the images' rows
+    edges = np.empty(nblock + 1, dtype=np.int64)
+    for b in range(nblock + 1):
+        edges[b] = 4 + (rows * b) // nblock
     half = np.float32(0.5)
     for n in range(q.size):
+        cur, nxt = n % 2, 1 - n % 2
+        pc = p[cur]
         for r in range(rec_r.shape[0]):
             acc = np.float32(0.0)
             for k in range(rec_r.shape[1]):
-                acc += rec_w[r, k] * p[rec_r[r, k], rec_c[r, k]]
+                acc += rec_w[r, k] * pc[rec_r[r, k], rec_c[r, k]]
             rec[n, r] = acc
-        _images(p, vz, free, True)
         if want_energy:
-            _energy(p, vx, vz, kap, bxx, bzz, ax_v, bx_v, az_v, bz_v, c, erow)
+            _images(pc, vz[cur], free, True)
+            _energy(pc, vx[cur], vz[cur], kap, bxx, bzz, ax_v, bx_v, az_v, bz_v, c, erow)
             tot = 0.0
             for j in range(nzp):  # fixed order: the same sum for any thread count
                 tot += erow[j]
             energy[n] = tot
-        _update_v(p, vx, vz, bxx, bzz, ax_v, bx_v, az_v, bz_v, c)
-        _images(p, vz, free, False)
-        _update_p(p, px, pz, vx, vz, kap, ax_p, bx_p, az_p, bz_p, c, top)
+        for b in prange(nblock):
+            _advance_rows(edges[b], edges[b + 1], top, free, p[cur], px[cur], pz[cur], vx[cur],
+                          vz[cur], p[nxt], px[nxt], pz[nxt], vx[nxt], vz[nxt], kap, bxx, bzz,
+                          ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c)
         qn = np.float32(q[n])
+        P, PX, PZ = p[nxt], px[nxt], pz[nxt]
         for k in range(src_r.size):
             s = src_w[k] * qn
-            px[src_r[k], src_c[k]] += half * s
-            pz[src_r[k], src_c[k]] += half * s
-            p[src_r[k], src_c[k]] += s
+            PX[src_r[k], src_c[k]] += half * s
+            PZ[src_r[k], src_c[k]] += half * s
+            P[src_r[k], src_c[k]] += s
     return rec, energy
+
+
+# one loop, two builds: prange runs as range in the serial one, which needs no thread pool
+_run_serial = njit(cache=True, nogil=True)(_run)
+_run_parallel = njit(cache=True, nogil=True, parallel=True)(_run)
 
 
 def model_shot(thickness, velocity, density=None, *, offsets, source_depth=6.0, receiver_depth=8.0,
                peak_frequency=25.0, dt=0.004, nsamples=751, delay=0.0, free_surface=True,
-               grid_spacing=None, time_step=None, params=None, return_energy=False):
+               grid_spacing=None, time_step=None, params=None, return_energy=False, threads=0):
     """Pressure recorded from one shot over flat layers, by the 2D acoustic wave equation.
 
     The source sits at x = 0, ``source_depth`` below the free surface; receiver r at
@@ -487,6 +512,11 @@ def model_shot(thickness, velocity, density=None, *, offsets, source_depth=6.0, 
         Numerical choices; default ``WaveParams()``.
     return_energy : bool
         Also return the wavefield's energy per metre of line at every output sample.
+    threads : int
+        Threads for the time loop (blocks of grid rows, one sync per step); 0 (default) takes
+        numba's current number. The result has the same bits for any count. On a loaded
+        machine the per-step sync costs more than a second thread gains: use 1 there, or model
+        several shots at once on one thread each (as :func:`velspec.synth.make_wave_line` does).
 
     Returns
     -------
@@ -608,9 +638,21 @@ def model_shot(thickness, velocity, density=None, *, offsets, source_depth=6.0, 
     c = np.zeros(4, dtype=np.float32)
     cs = STAGGERED_COEFFICIENTS[params.order]
     c[: len(cs)] = cs
-    _run(kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c,
-         src_r.ravel(), src_c.ravel(), src_w.ravel(), q.astype(np.float32),
-         rec_r, rec_c, rec_w, bool(free_surface), bool(return_energy), rec, energy)
+    if not (isinstance(threads, (int, np.integer)) and threads >= 0):
+        raise ParameterError("threads must be an integer >= 0 (0: numba's current number)")
+    nthreads = int(threads) or numba.get_num_threads()
+    args = (kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c, src_r.ravel(),
+            src_c.ravel(), src_w.ravel(), q.astype(np.float32), rec_r, rec_c, rec_w,
+            bool(free_surface), bool(return_energy), nthreads, rec, energy)
+    if nthreads == 1:
+        _run_serial(*args)
+    else:
+        before = numba.get_num_threads()  # thread-local in numba: restored for the caller
+        numba.set_num_threads(min(nthreads, numba.config.NUMBA_NUM_THREADS))
+        try:
+            _run_parallel(*args)
+        finally:
+            numba.set_num_threads(before)
 
     # to the output sampling; output sample k of the decimated record is at t_begin + k dt
     out = resample_poly(rec.astype(np.float64), 1, ratio, axis=0) if ratio > 1 else rec
