@@ -329,7 +329,7 @@ def _images(p, vz, free, of_p):
                 dst[i] = src[i]
 
 
-@njit(cache=True, nogil=True, parallel=True)
+@njit(cache=True, nogil=True)
 def _energy(p, vx, vz, kap, bxx, bzz, ax_v, bx_v, az_v, bz_v, c, erow):
     """Sum of p^2 / (2 K) + rho v^(n-1/2) v^(n+1/2) / 2, times h / dt, before the v update.
 
@@ -338,7 +338,7 @@ def _energy(p, vx, vz, kap, bxx, bzz, ax_v, bx_v, az_v, bz_v, c, erow):
     nzp, nxp = p.shape
     c1, c2, c3, c4 = c[0], c[1], c[2], c[3]
     m = nxp - 8
-    for j in prange(4, nzp - 4):
+    for j in range(4, nzp - 4):
         pr, vxr, vzr, kr, bxr, bzr = p[j], vx[j], vz[j], kap[j], bxx[j], bzz[j]
         pm3, pm2, pm1, p1, p2, p3, p4 = p[j - 3], p[j - 2], p[j - 1], p[j + 1], p[j + 2], p[j + 3], p[j + 4]
         a, b = az_v[j], bz_v[j]
@@ -411,61 +411,107 @@ def _advance_rows(r0, r1, top, free, p, px, pz, vx, vz, P, PX, PZ, VX, VZ, kap, 
             outp[i] = outx[i] + u
 
 
-def _run(kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c, src_r, src_c,
-         src_w, q, rec_r, rec_c, rec_w, free, want_energy, nblock, rec, energy):
-    """Leapfrog the staggered-grid equations ``q.size`` steps; record p before each step.
+@njit(cache=True, nogil=True, parallel=True)
+def _advance_blocks(edges, top, free, p, px, pz, vx, vz, P, PX, PZ, VX, VZ, kap, bxx, bzz,
+                    ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c):
+    """One time step, the blocks of rows between ``edges`` in parallel (one region per step)."""
+    for b in prange(edges.size - 1):
+        _advance_rows(edges[b], edges[b + 1], top, free, p, px, pz, vx, vz, P, PX, PZ, VX, VZ,
+                      kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c)
+
+
+@njit(cache=True, nogil=True)
+def _fields(nzp, nxp):
+    """Double-buffered p, px, pz, vx, vz: index 0 or 1 is the level, even or odd step."""
+    return (np.zeros((2, nzp, nxp), dtype=np.float32), np.zeros((2, nzp, nxp), dtype=np.float32),
+            np.zeros((2, nzp, nxp), dtype=np.float32), np.zeros((2, nzp, nxp), dtype=np.float32),
+            np.zeros((2, nzp, nxp), dtype=np.float32))
+
+
+@njit(cache=True, nogil=True)
+def _record(pc, rec_r, rec_c, rec_w, out):
+    """Pressure at the receivers: windowed-sinc weights over nodes, summed in a fixed order."""
+    for r in range(rec_r.shape[0]):
+        acc = np.float32(0.0)
+        for k in range(rec_r.shape[1]):
+            acc += rec_w[r, k] * pc[rec_r[r, k], rec_c[r, k]]
+        out[r] = acc
+
+
+@njit(cache=True, nogil=True)
+def _inject(P, PX, PZ, src_r, src_c, src_w, qn):
+    """Add the source's pressure increment, half to each split part."""
+    half = np.float32(0.5)
+    for k in range(src_r.size):
+        s = src_w[k] * qn
+        PX[src_r[k], src_c[k]] += half * s
+        PZ[src_r[k], src_c[k]] += half * s
+        P[src_r[k], src_c[k]] += s
+
+
+@njit(cache=True, nogil=True)
+def _total_energy(pc, vxc, vzc, kap, bxx, bzz, ax_v, bx_v, az_v, bz_v, c, free, erow):
+    _images(pc, vzc, free, True)
+    _energy(pc, vxc, vzc, kap, bxx, bzz, ax_v, bx_v, az_v, bz_v, c, erow)
+    tot = 0.0
+    for j in range(erow.size):  # fixed order
+        tot += erow[j]
+    return tot
+
+
+@njit(cache=True, nogil=True)
+def _run_serial(kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c, src_r, src_c,
+                src_w, q, rec_r, rec_c, rec_w, free, want_energy, rec, energy):
+    """Leapfrog ``q.size`` steps on one thread; record p before each step.
 
     Padded arrays (nz + 8, nx + 8), the surface on row 4 when ``free``; ``kap = dt K / h``,
-    ``bxx``, ``bzz = dt / (rho h)`` at the vx, vz nodes; ``c`` the four stencil weights. Each
-    step is one parallel region over blocks of rows (one per thread), the fields double
-    buffered so that every block reads only the previous levels.
+    ``bxx``, ``bzz = dt / (rho h)`` at the vx, vz nodes; ``c`` the four stencil weights.
     """
     nzp, nxp = kap.shape
-    p = np.zeros((2, nzp, nxp), dtype=np.float32)
-    px = np.zeros((2, nzp, nxp), dtype=np.float32)
-    pz = np.zeros((2, nzp, nxp), dtype=np.float32)
-    vx = np.zeros((2, nzp, nxp), dtype=np.float32)
-    vz = np.zeros((2, nzp, nxp), dtype=np.float32)
+    p, px, pz, vx, vz = _fields(nzp, nxp)
     erow = np.zeros(nzp, dtype=np.float64)
     top = 5 if free else 4  # first row of p updated; row 4 is the free surface (p = 0)
+    for n in range(q.size):
+        cur, nxt = n % 2, 1 - n % 2
+        _record(p[cur], rec_r, rec_c, rec_w, rec[n])
+        if want_energy:
+            energy[n] = _total_energy(p[cur], vx[cur], vz[cur], kap, bxx, bzz, ax_v, bx_v, az_v,
+                                      bz_v, c, free, erow)
+        _advance_rows(4, nzp - 4, top, free, p[cur], px[cur], pz[cur], vx[cur], vz[cur], p[nxt],
+                      px[nxt], pz[nxt], vx[nxt], vz[nxt], kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v,
+                      az_p, bz_p, az_v, bz_v, c)
+        _inject(p[nxt], px[nxt], pz[nxt], src_r, src_c, src_w, np.float32(q[n]))
+    return rec, energy
+
+
+@njit(cache=True, nogil=True)
+def _run_parallel(kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c, src_r,
+                  src_c, src_w, q, rec_r, rec_c, rec_w, free, want_energy, nblock, rec, energy):
+    """As :func:`_run_serial`, each step one parallel region over ``nblock`` blocks of rows.
+
+    Kept apart from the serial loop: cached code that refers to a parallel function must not
+    be loaded before numba's thread pool has started.
+    """
+    nzp, nxp = kap.shape
+    p, px, pz, vx, vz = _fields(nzp, nxp)
+    erow = np.zeros(nzp, dtype=np.float64)
+    top = 5 if free else 4
     rows = nzp - 8
     nblock = max(1, min(nblock, rows // 8))  # the top block must hold the images' rows
     edges = np.empty(nblock + 1, dtype=np.int64)
     for b in range(nblock + 1):
         edges[b] = 4 + (rows * b) // nblock
-    half = np.float32(0.5)
     for n in range(q.size):
         cur, nxt = n % 2, 1 - n % 2
-        pc = p[cur]
-        for r in range(rec_r.shape[0]):
-            acc = np.float32(0.0)
-            for k in range(rec_r.shape[1]):
-                acc += rec_w[r, k] * pc[rec_r[r, k], rec_c[r, k]]
-            rec[n, r] = acc
+        _record(p[cur], rec_r, rec_c, rec_w, rec[n])
         if want_energy:
-            _images(pc, vz[cur], free, True)
-            _energy(pc, vx[cur], vz[cur], kap, bxx, bzz, ax_v, bx_v, az_v, bz_v, c, erow)
-            tot = 0.0
-            for j in range(nzp):  # fixed order: the same sum for any thread count
-                tot += erow[j]
-            energy[n] = tot
-        for b in prange(nblock):
-            _advance_rows(edges[b], edges[b + 1], top, free, p[cur], px[cur], pz[cur], vx[cur],
-                          vz[cur], p[nxt], px[nxt], pz[nxt], vx[nxt], vz[nxt], kap, bxx, bzz,
-                          ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c)
-        qn = np.float32(q[n])
-        P, PX, PZ = p[nxt], px[nxt], pz[nxt]
-        for k in range(src_r.size):
-            s = src_w[k] * qn
-            PX[src_r[k], src_c[k]] += half * s
-            PZ[src_r[k], src_c[k]] += half * s
-            P[src_r[k], src_c[k]] += s
+            energy[n] = _total_energy(p[cur], vx[cur], vz[cur], kap, bxx, bzz, ax_v, bx_v, az_v,
+                                      bz_v, c, free, erow)
+        _advance_blocks(edges, top, free, p[cur], px[cur], pz[cur], vx[cur], vz[cur], p[nxt],
+                        px[nxt], pz[nxt], vx[nxt], vz[nxt], kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v,
+                        az_p, bz_p, az_v, bz_v, c)
+        _inject(p[nxt], px[nxt], pz[nxt], src_r, src_c, src_w, np.float32(q[n]))
     return rec, energy
-
-
-# one loop, two builds: prange runs as range in the serial one, which needs no thread pool
-_run_serial = njit(cache=True, nogil=True)(_run)
-_run_parallel = njit(cache=True, nogil=True, parallel=True)(_run)
 
 
 def model_shot(thickness, velocity, density=None, *, offsets, source_depth=6.0, receiver_depth=8.0,
@@ -531,6 +577,16 @@ def model_shot(thickness, velocity, density=None, *, offsets, source_depth=6.0, 
     ------
     ParameterError
         For an impossible model or geometry, or a grid that is unstable or too coarse.
+
+    Notes
+    -----
+    Accuracy on the default grid (order 8, 4.5 points per wavelength at 2.5 times the peak
+    frequency, leapfrog phase error 0.2 % there), measured in tests/test_wave.py: arrival times
+    within 1 ms of exact ray tracing over 1.4 s (the leapfrog's phase error makes waves very
+    slightly fast, ~0.03 % of the traveltime at the peak frequency); the direct wave's amplitude
+    within 0.2 % of the 2D Green's function; a sharp interface's reflection coefficient
+    converges as h^2 and comes out a few percent weak (about 4 % at 25 Hz on a 5 m grid for a
+    water / sediment contrast of 0.46): interfaces are a cell wide on the grid.
 
     References
     ----------
@@ -643,14 +699,14 @@ def model_shot(thickness, velocity, density=None, *, offsets, source_depth=6.0, 
     nthreads = int(threads) or numba.get_num_threads()
     args = (kap, bxx, bzz, ax_p, bx_p, ax_v, bx_v, az_p, bz_p, az_v, bz_v, c, src_r.ravel(),
             src_c.ravel(), src_w.ravel(), q.astype(np.float32), rec_r, rec_c, rec_w,
-            bool(free_surface), bool(return_energy), nthreads, rec, energy)
-    if nthreads == 1:
-        _run_serial(*args)
+            bool(free_surface), bool(return_energy))
+    if nthreads == 1:  # no thread pool at all: nothing to wait for on a busy machine
+        _run_serial(*args, rec, energy)
     else:
         before = numba.get_num_threads()  # thread-local in numba: restored for the caller
         numba.set_num_threads(min(nthreads, numba.config.NUMBA_NUM_THREADS))
         try:
-            _run_parallel(*args)
+            _run_parallel(*args, nthreads, rec, energy)
         finally:
             numba.set_num_threads(before)
 
