@@ -236,3 +236,134 @@ def test_impossible_wave_line_writes_nothing(tmp_path):
         make_wave_line(tmp_path / "bad.sgy", WaveLineSpec(model_b=(np.array([300.0]), np.array([1500.0, 2000.0])),
                                                           step_cmp=1020))
     assert list(tmp_path.iterdir()) == []
+
+
+# --- the line maker ---------------------------------------------------------------------------
+
+LINE_H, LINE_V = np.array([150.0, 250.0, 300.0]), np.array([1480.0, 1750.0, 2100.0, 2600.0])
+LINE_VB = LINE_V * np.array([1.0, 1.03, 1.03, 1.03])  # 3 % faster below the sea floor
+
+
+def small_line(**kw):
+    args = dict(ncmp=12, channels=24, nsamples=251, model=(LINE_H, LINE_V), model_b=(LINE_H, LINE_VB),
+                step_cmp=1007)
+    args.update(kw)
+    return WaveLineSpec(**args)
+
+
+@pytest.fixture(scope="module")
+def wave_line(tmp_path_factory):
+    d = tmp_path_factory.mktemp("waveline")
+    truth = make_wave_line(d / "line.sgy", small_line(), cache_dir=d / "cache", threads=2)
+    return d, truth
+
+
+@pytest.mark.slow
+def test_wave_line_headers_follow_the_standard_layout(wave_line):
+    # SEG-Y rev 1 (2002), read by segyio: offset = |group x - source x| after the coordinate
+    # scalar (-100: divide), and the CDP number is the midpoint's bin.
+    d, truth = wave_line
+    spec = truth.spec
+    with segyio.open(d / "line.sgy", ignore_geometry=True) as f:
+        assert f.tracecount == truth.ntraces
+        assert f.samples.size == spec.nsamples and segyio.tools.dt(f) == spec.dt * 1e6
+        h = f.header
+        sx = np.array([h[i][segyio.TraceField.SourceX] for i in range(f.tracecount)]) / 100.0
+        gx = np.array([h[i][segyio.TraceField.GroupX] for i in range(f.tracecount)]) / 100.0
+        off = np.array([h[i][segyio.TraceField.offset] for i in range(f.tracecount)])
+        cdp = np.array([h[i][segyio.TraceField.CDP] for i in range(f.tracecount)])
+    assert np.allclose(np.abs(gx - sx), off)
+    mid = 0.5 * (sx + gx)
+    assert np.array_equal(cdp, spec.first_cmp + np.round((mid - spec.first_cmp_x) / (0.5 * spec.group_interval)))
+    assert np.array_equal(np.bincount(cdp - spec.first_cmp), truth.fold)
+
+
+@pytest.mark.slow
+def test_each_cmp_takes_the_modelled_shot_of_its_part(wave_line):
+    d, truth = wave_line
+    spec = truth.spec
+    offsets = spec.near_offset + np.arange(spec.channels) * spec.group_interval
+    t = np.arange(spec.nsamples) * spec.dt
+    gain = np.where(t > 0, t, 0.0) ** spec.gain_power
+    shots = [model_shot(m[0], m[1], spec.densities(i), offsets=offsets, dt=spec.dt, nsamples=spec.nsamples,
+                        grid_spacing=truth.grid_spacing, time_step=truth.time_step, **SERIAL)
+             for i, m in enumerate(((LINE_H, LINE_V), (LINE_H, LINE_VB)))]
+    with segyio.open(d / "line.sgy", ignore_geometry=True) as f:
+        cdp = f.attributes(segyio.TraceField.CDP)[:]
+        chan = f.attributes(segyio.TraceField.TraceNumber)[:] - 1
+        data = f.trace.raw[:]
+    part = (cdp >= spec.step_cmp).astype(int)
+    assert set(part) == {0, 1}
+    expect = np.stack([(shots[p][c] * gain).astype(np.float32) for p, c in zip(part, chan)])
+    assert np.array_equal(data, expect)
+    assert np.array_equal(truth.part, (truth.cmp >= spec.step_cmp).astype(int))
+
+
+@pytest.mark.slow
+def test_same_file_for_any_thread_count_and_from_the_cache(wave_line, tmp_path):
+    d, first = wave_line
+    again = make_wave_line(tmp_path / "serial.sgy", small_line(), threads=1)
+    cached = make_wave_line(tmp_path / "cached.sgy", small_line(), cache_dir=d / "cache")
+    reference = (d / "line.sgy").read_bytes()
+    assert (tmp_path / "serial.sgy").read_bytes() == reference
+    assert (tmp_path / "cached.sgy").read_bytes() == reference
+    assert cached.model_seconds == [0.0, 0.0] and min(again.model_seconds) > 0
+
+
+@pytest.mark.slow
+def test_signal_to_noise_ratio_as_defined(wave_line, tmp_path):
+    # WaveLineSpec.snr: RMS of the noise-free traces from the sea-floor reflection on (its
+    # exact time at each offset less the wavelet's half-length) over the RMS of the noise
+    d, _ = wave_line
+    noisy = make_wave_line(tmp_path / "noisy.sgy", small_line(snr=2.0), cache_dir=d / "cache")
+    with segyio.open(d / "line.sgy", ignore_geometry=True) as f:
+        clean = f.trace.raw[:].astype(np.float64)
+        off = f.attributes(segyio.TraceField.offset)[:].astype(float)
+    with segyio.open(tmp_path / "noisy.sgy", ignore_geometry=True) as f:
+        noise = f.trace.raw[:].astype(np.float64) - clean
+    t = np.arange(clean.shape[1]) * noisy.spec.dt
+    t_wb, _ = reflection_times(LINE_H[:1], LINE_V[:2], off)  # same water in both parts
+    live = t[None, :] >= t_wb[0][:, None] - 1.5 / noisy.spec.peak_frequency
+    ratio = np.sqrt(np.mean(clean[live] ** 2)) / np.std(noise)
+    assert ratio == pytest.approx(2.0, rel=0.02)  # noise of a finite sample
+
+
+@pytest.mark.slow
+def test_truth_is_that_of_exact_ray_tracing_for_each_part(wave_line, tmp_path):
+    # the ray-traced line's own truth (LineTruth of make_line) for the same model and geometry
+    _, truth = wave_line
+    spec = truth.spec
+    for part, model in enumerate(((LINE_H, LINE_V), (LINE_H, LINE_VB))):
+        ray = make_line(tmp_path / f"ray{part}.sgy", LineSpec(
+            ncmp=spec.ncmp, channels=spec.channels, nsamples=spec.nsamples, model=model,
+            density=spec.densities(part), multiples=True, reverberation_order=spec.reverberation_order,
+            pegleg_order=spec.pegleg_order))
+        rows = truth.part == part
+        assert np.allclose(truth.t0[rows], ray.t0[rows]) and np.allclose(truth.vrms[rows], ray.vrms[rows])
+        assert np.allclose(truth.reflection_coefficient[rows], ray.reflection_coefficient[rows])
+        vs, _ = truth.stacking_velocity(stretch_limit=0.5)
+        assert np.allclose(vs[rows], ray.stacking_velocity(stretch_limit=0.5)[0][rows], equal_nan=True)
+        mine, theirs = truth.multiple_events(), ray.multiple_events()
+        assert np.array_equal(mine.kind, theirs.kind)
+        for name in ("t0", "vstack", "amplitude"):
+            assert np.allclose(getattr(mine, name)[rows], getattr(theirs, name)[rows], equal_nan=True)
+    assert spec.reverberation_order == int(1.0 / (2 * 150.0 / 1480.0)) - 1  # orders within the 1 s record
+
+
+def test_sonic_model_keeps_the_logs_integrated_time():
+    # the open F03-02 log (../shared/data/wells): the blocks below the assumed overburden keep
+    # the two-way time of the sonic integrated over its depth range (trapezoid rule)
+    las = WELLS / "F03-02.las"
+    if not las.exists():
+        pytest.skip(f"open well log {las} not present (shared data absent)")
+    from velspec.io.las import read_sonic
+    from velspec.synth import sonic_wave_model
+
+    h, v, rho = sonic_wave_model(las, water_depth=120.0, overburden_velocity=1650.0, block_thickness=20.0)
+    depth, dt = read_sonic(las)
+    ok = np.isfinite(dt) & (dt > 0)
+    log_time = 2 * np.trapezoid(dt[ok] * 1e-6 / 0.3048, depth[ok])
+    assert np.sum(2 * h[2:] / v[2:-1]) == pytest.approx(log_time, rel=1e-9)
+    assert h[0] == 120.0 and v[0] == 1480.0 and rho[0] == 1025.0
+    assert h[1] == pytest.approx(depth[ok].min() - 120.0) and v[1] == 1650.0
+    assert np.mean(h[2:]) == pytest.approx(20.0, rel=0.1)
