@@ -560,9 +560,13 @@ def model_shot(thickness, velocity, density=None, *, offsets, source_depth=6.0, 
         Also return the wavefield's energy per metre of line at every output sample.
     threads : int
         Threads for the time loop (blocks of grid rows, one sync per step); 0 (default) takes
-        numba's current number. The result has the same bits for any count. On a loaded
-        machine the per-step sync costs more than a second thread gains: use 1 there, or model
-        several shots at once on one thread each (as :func:`velspec.synth.make_wave_line` does).
+        numba's current number. The result has the same bits for any count. On a machine
+        whose cores are busy with other work, GNU OpenMP's spinning threads make each per-step
+        sync wait for a time slice: two threads ran 5x slower than one at a load of 5 on 2
+        cores, and as fast as one with ``OMP_WAIT_POLICY=PASSIVE`` (or
+        ``NUMBA_THREADING_LAYER=workqueue``) set before the process starts. Use 1 there, or
+        model several shots at once on one thread each (as
+        :func:`velspec.synth.make_wave_line` does).
 
     Returns
     -------

@@ -302,12 +302,16 @@ class WaveLineTruth(LineTruth):
         s.
     model_seconds : list of float
         Wall time of each part's modelling, s (0 where it came from the cache).
+    shots : ndarray of float32, shape (nparts, channels, nsamples)
+        The modelled shot gather of each part, noise-free and without the gain, channel r at
+        offset ``near_offset + r * group_interval``.
     """
 
     part: np.ndarray = None
     grid_spacing: float = 0.0
     time_step: float = 0.0
     model_seconds: list = field(default_factory=list)
+    shots: np.ndarray = None
 
     def _representatives(self, offsets):
         """CMPs that stand for all others (same part, same offsets), and who stands for whom."""
@@ -582,4 +586,5 @@ def make_wave_line(path, spec=None, cache_dir=None, progress=None, threads=0):
         fold=geom.fold, ntraces=int(geom.shot.size), signal_rms=float(signal_rms),
         noise_rms=float(noise_rms), multiple_rms=float("nan"), part=part_of_cmp,
         grid_spacing=float(h), time_step=float(step), model_seconds=seconds,
+        shots=np.stack(raw).astype(np.float32),
     )
