@@ -486,6 +486,84 @@ class IntervalParams:
         _check(_finite_positive(self.dz), "dz must be > 0 m")
 
 
+STAGGERED_COEFFICIENTS = {
+    4: (9.0 / 8.0, -1.0 / 24.0),
+    8: (1225.0 / 1024.0, -245.0 / 3072.0, 49.0 / 5120.0, -5.0 / 7168.0),
+}
+"""Staggered first-derivative weights of (f[+1/2] - f[-1/2]), (f[+3/2] - f[-3/2]), ... over h,
+by Taylor expansion (Levander, 1988, for order 4; Fornberg, 1988, Generation of finite
+difference formulas on arbitrarily spaced grids, Math. Comp. 51, 699-706, for any order)."""
+
+COURANT_LIMITS = {n: 1.0 / (math.sqrt(2.0) * sum(abs(c) for c in cs))
+                  for n, cs in STAGGERED_COEFFICIENTS.items()}
+"""Stability limit of ``v dt / h`` for leapfrog time steps and staggered space differences of
+each order in 2D, ``1 / (sqrt(2) sum |c_m|)`` (von Neumann analysis, e.g. Levander, 1988,
+Fourth-order finite-difference P-SV seismograms, Geophysics 53, 1425-1436): 0.606 for order 4,
+0.550 for order 8."""
+
+
+@dataclass(frozen=True)
+class WaveParams:
+    """Numerical choices of the finite-difference modeller (:mod:`velspec.synth.wave`).
+
+    Attributes
+    ----------
+    order : int
+        Order of the staggered space differences, 4 or 8 (default 8: at 4.5 points per
+        wavelength its phase-velocity error is 0.12 %, against 1.6 % for order 4).
+    points_per_wavelength : float
+        Fewest grid points per shortest wavelength, ``v_min / f_max`` (default 4.5). At the
+        default ``f_max`` this is about 7.8 points at the wavelet's upper half-power frequency,
+        above the ~5 that Alford, Kelly & Boore (1974) found enough for fourth-order differences
+        (value from memory).
+    max_frequency_ratio : float
+        Highest frequency modelled, as a multiple of the Ricker peak frequency (default 2.5:
+        there the Ricker amplitude spectrum is 3 % of its peak).
+    courant : float
+        Largest ``v_max dt / h`` when the time step is chosen automatically (default 0.5); it
+        must stay below the stability limit of the order, :data:`COURANT_LIMITS`.
+    time_phase_error : float
+        Largest phase-velocity error of the leapfrog time step at ``f_max`` when the step is
+        chosen automatically, ``(2 pi f_max dt)^2 / 24`` (default 0.002): in slow, uniform
+        models the stability limit alone allows steps whose error is several percent.
+    boundary_cells : int
+        Width of the absorbing layer on the sides and the bottom, grid cells (default 30).
+    boundary_reflection : float
+        Design reflection coefficient of the absorbing layer at normal incidence, which sets its
+        damping (default 1e-4; Collino & Tsogka, 2001).
+    margin : float
+        Distance kept between the outermost source or receiver and the absorbing layer, m
+        (default 150).
+    """
+
+    order: int = 8
+    points_per_wavelength: float = 4.5
+    max_frequency_ratio: float = 2.5
+    courant: float = 0.5
+    time_phase_error: float = 0.002
+    boundary_cells: int = 30
+    boundary_reflection: float = 1e-4
+    margin: float = 150.0
+
+    def validate(self) -> "WaveParams":
+        _check(self.order in STAGGERED_COEFFICIENTS, "order must be 4 or 8 (staggered space differences)")
+        _check(_finite_positive(self.points_per_wavelength) and self.points_per_wavelength >= 2.5,
+               "points_per_wavelength must be >= 2.5 (below that the differences are far too dispersive)")
+        _check(_finite_positive(self.max_frequency_ratio) and 1.0 <= self.max_frequency_ratio <= 5.0,
+               "max_frequency_ratio must be in [1, 5] (times the Ricker peak frequency)")
+        limit = COURANT_LIMITS.get(self.order, 0.0)
+        _check(_finite_positive(self.courant) and self.courant <= limit,
+               f"courant must be in (0, {limit:.3f}] for order {self.order}: above that the scheme is unstable")
+        _check(_finite_positive(self.time_phase_error) and self.time_phase_error <= 0.1,
+               "time_phase_error must be in (0, 0.1]")
+        _check(isinstance(self.boundary_cells, int) and 5 <= self.boundary_cells <= 500,
+               "boundary_cells must be an integer in 5..500")
+        _check(_finite_positive(self.boundary_reflection) and self.boundary_reflection < 1,
+               "boundary_reflection must be in (0, 1)")
+        _check(_finite_nonneg(self.margin), "margin must be >= 0 m")
+        return self
+
+
 @dataclass(frozen=True)
 class RunParams:
     """All parameters of ``velspec run``.

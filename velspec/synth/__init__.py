@@ -1,5 +1,6 @@
-"""Synthetic data with a known answer: exact flat-layer traveltimes, a prestack 2D line written
-as SEG-Y, and layered models blocked from sonic logs."""
+"""Synthetic data with a known answer: exact flat-layer traveltimes, prestack 2D lines written
+as SEG-Y (ray-traced events, or the 2D acoustic wave equation), and layered models blocked from
+sonic logs."""
 
 from velspec.synth.layers import (
     best_fit_stacking_velocity,
@@ -27,12 +28,16 @@ from velspec.synth.line import (
     reverb_spec,
     ricker,
 )
+from velspec.synth.wave import model_shot
+from velspec.synth.waveline import WaveLineSpec, WaveLineTruth, make_wave_line, sonic_wave_model
 from velspec.synth.wells import blocked_model_from_sonic, sonic_velocity
 
 __all__ = [
     "LineSpec",
     "LineTruth",
     "MultipleEvents",
+    "WaveLineSpec",
+    "WaveLineTruth",
     "best_fit_stacking_velocity",
     "blocked_model_from_sonic",
     "critical_fade",
@@ -42,6 +47,8 @@ __all__ = [
     "gardner_density",
     "incidence_sine",
     "make_line",
+    "make_wave_line",
+    "model_shot",
     "multiple_times",
     "path_crossings",
     "reflection_coefficients",
@@ -51,6 +58,7 @@ __all__ = [
     "ricker",
     "rms_velocity",
     "sonic_velocity",
+    "sonic_wave_model",
     "stacking_velocity",
     "trace_rays",
     "zero_offset_times",

@@ -49,10 +49,16 @@ from velspec.synth.layers import (
 )
 
 __all__ = [
+    "LineGeometry",
     "LineSpec",
     "LineTruth",
     "MultipleEvents",
+    "band_limited_noise",
+    "line_geometry",
     "make_line",
+    "segy_text_header",
+    "trace_blocks",
+    "write_segy_line",
     "demo_spec",
     "reverb_spec",
     "default_model",
@@ -623,12 +629,53 @@ def _cmp_models(spec):
     return hh, vv, rho
 
 
-def _geometry(spec):
-    """All traces of the line as (shot, channel, bin) index arrays in shot order, and s0.
+@dataclass
+class LineGeometry:
+    """Every trace of a line's geometry, in shot order (see :func:`line_geometry`).
+
+    Attributes
+    ----------
+    shot : ndarray of int64, shape (ntraces,)
+        Shot index, 0 at the first shot written.
+    chan : ndarray of int64, shape (ntraces,)
+        Channel index, 0 = near.
+    bins : ndarray of int64, shape (ntraces,)
+        CMP bin index, 0 = ``first_cmp``.
+    s0 : int
+        Index of the first shot written on the full shot axis (shot i sits at x of shot i + s0).
+    offset : ndarray, shape (ntraces,)
+        Source-receiver offset, m.
+    cmp_offsets : ndarray, shape (ncmp, maxfold)
+        Offsets of each CMP's traces, m, increasing, NaN-padded.
+    fold : ndarray of int64, shape (ncmp,)
+        Traces per CMP.
+    """
+
+    shot: np.ndarray
+    chan: np.ndarray
+    bins: np.ndarray
+    s0: int
+    offset: np.ndarray
+    cmp_offsets: np.ndarray
+    fold: np.ndarray
+
+
+def line_geometry(spec):
+    """All traces of an end-on line whose CMPs lie in the line's CMP range, in shot order.
 
     Shot s sits at ``first_cmp_x - near_offset/2 + s * shot_interval`` so that channel 0 of shot 0
     falls on the centre of bin 0; the midpoint of (s, r) is then
     ``first_cmp_x + s * shot_interval + r * group_interval / 2``.
+
+    Parameters
+    ----------
+    spec : LineSpec
+        Or any object with its geometry attributes ``ncmp``, ``channels``, ``group_interval``,
+        ``shot_interval`` and ``near_offset`` (e.g. a wave-equation line's spec).
+
+    Returns
+    -------
+    LineGeometry
     """
     k = spec.shot_interval / (0.5 * spec.group_interval)  # bins advanced per shot
     r = np.arange(spec.channels)
@@ -645,7 +692,58 @@ def _geometry(spec):
     shot = np.concatenate(shots)
     # shots numbered from 0 at the first one written; x of shot i is x of shot (i + s0) above
     chan = np.concatenate(chans).astype(np.int64)
-    return shot - shot[0], chan, np.concatenate(bins), int(shot[0])
+    bins = np.concatenate(bins)
+    offset = spec.near_offset + chan * spec.group_interval
+    ntr = shot.size
+    fold = np.bincount(bins, minlength=spec.ncmp)
+    offs = np.full((spec.ncmp, fold.max()), np.nan)
+    order = np.lexsort((offset, bins))
+    pos = np.arange(ntr) - np.repeat(np.cumsum(fold) - fold, fold)
+    offs[bins[order], pos] = offset[order]
+    return LineGeometry(shot=shot - shot[0], chan=chan, bins=bins, s0=int(shot[0]), offset=offset,
+                        cmp_offsets=offs, fold=fold.astype(np.int64))
+
+
+def band_limited_noise(shot, chan, nsamples, dt, peak_frequency, seed):
+    """Unit-variance noise in the band of a Ricker wavelet, one seeded stream per trace.
+
+    White Gaussian noise filtered with the Ricker wavelet of ``peak_frequency`` (so it shares
+    the signal's band) and scaled to unit variance; the noise of a trace depends only on
+    ``seed``, its shot and its channel, so any trace order holds the same noise.
+
+    Parameters
+    ----------
+    shot, chan : array_like of int, shape (m,)
+        Shot and channel index of each trace.
+    nsamples : int
+        Samples per trace.
+    dt : float
+        Sample interval, s.
+    peak_frequency : float
+        Ricker peak frequency, Hz.
+    seed : int
+        Seed of the line.
+
+    Returns
+    -------
+    noise : ndarray, shape (m, nsamples)
+        Dimensionless, unit variance.
+
+    References
+    ----------
+    Ricker, N., 1953, Geophysics 18, 10-40.
+    """
+    hk = int(np.ceil(_WAVELET_HALF / peak_frequency / dt))
+    kern = ricker((np.arange(2 * hk + 1) - hk) * dt, peak_frequency)
+    kern = kern / np.sqrt(np.sum(kern**2))  # unit gain on white noise power
+    n = nsamples + 2 * hk
+    white = np.stack(
+        [
+            np.random.default_rng([seed, 1, int(s), int(c)]).standard_normal(n)
+            for s, c in zip(shot, chan)
+        ]
+    )
+    return fftconvolve(white, kern[None, :], mode="valid", axes=1)
 
 
 class _Synth:
@@ -662,10 +760,6 @@ class _Synth:
         self.mult_amp = self.table.amplitude(self.R)  # (ncmp, E) at zero offset
         self.half = _WAVELET_HALF / spec.peak_frequency
         self.nw = int(np.ceil(2.0 * self.half / spec.dt)) + 2
-        hk = int(np.ceil(self.half / spec.dt))
-        kern = ricker((np.arange(2 * hk + 1) - hk) * spec.dt, spec.peak_frequency)
-        self.noise_kernel = kern / np.sqrt(np.sum(kern**2))  # unit gain on white noise power
-        self.hk = hk
 
     def offsets(self, chan):
         return self.spec.near_offset + chan * self.spec.group_interval
@@ -715,23 +809,7 @@ class _Synth:
     def noise(self, shot, chan):
         """Unit-variance band-limited noise (m, nsamples), seeded per (shot, channel)."""
         sp = self.spec
-        n = sp.nsamples + 2 * self.hk
-        white = np.stack(
-            [
-                np.random.default_rng([sp.seed, 1, int(s), int(c)]).standard_normal(n)
-                for s, c in zip(shot, chan)
-            ]
-        )
-        return fftconvolve(white, self.noise_kernel[None, :], mode="valid", axes=1)
-
-
-def _blocks(shot, chan, bins, order):
-    """Index arrays of the trace batches in writing order: one shot, or one CMP, per batch."""
-    # offset grows with the channel number, so (bin, channel) is CMP order with offsets increasing
-    key = shot if order == "shot" else bins
-    perm = np.lexsort((chan, key))
-    cuts = np.flatnonzero(np.diff(key[perm])) + 1
-    return np.split(perm, cuts)
+        return band_limited_noise(shot, chan, sp.nsamples, sp.dt, sp.peak_frequency, sp.seed)
 
 
 def _text_header(spec, ntraces):
@@ -778,6 +856,29 @@ def _text_header(spec, ntraces):
         + ", ".join(f"{a:g}/{b:g}" for a, b in zip(h, v[:-1]))
         + f", half-space {v[-1]:g}.",
     ]
+    return segy_text_header(lines)
+
+
+def segy_text_header(lines):
+    """A SEG-Y rev 1 textual header from paragraphs of plain text.
+
+    The paragraphs are wrapped to 76 columns into the first 38 card images (the rest cut);
+    card 39 says ``SEG Y REV1`` and card 40 ``END TEXTUAL HEADER``, as the standard asks.
+
+    Parameters
+    ----------
+    lines : sequence of str
+        Paragraphs.
+
+    Returns
+    -------
+    str
+        The 3200-character header, as segyio writes it.
+
+    References
+    ----------
+    SEG Technical Standards Committee, 2002, SEG Y rev 1 Data Exchange format (textual header).
+    """
     rows = []
     for line in lines:
         rows += textwrap.wrap(line, 76)
@@ -786,6 +887,143 @@ def _text_header(spec, ntraces):
     rows[39] = "SEG Y REV1"
     rows[40] = "END TEXTUAL HEADER"
     return segyio.tools.create_text_header(rows)
+
+
+def trace_blocks(geometry, order):
+    """Index arrays of the trace batches in writing order: one shot, or one CMP, per batch.
+
+    Parameters
+    ----------
+    geometry : LineGeometry
+    order : str
+        ``"shot"`` (channels in order) or ``"cmp"`` (offsets increasing).
+
+    Returns
+    -------
+    list of ndarray of int64
+        Indices into the geometry's trace arrays.
+    """
+    shot, chan, bins = geometry.shot, geometry.chan, geometry.bins
+    # offset grows with the channel number, so (bin, channel) is CMP order with offsets increasing
+    key = shot if order == "shot" else bins
+    perm = np.lexsort((chan, key))
+    cuts = np.flatnonzero(np.diff(key[perm])) + 1
+    return np.split(perm, cuts)
+
+
+def write_segy_line(path, spec, geometry, traces, text_header):
+    """Write the traces of a line's geometry as SEG-Y rev 1, batch by batch, atomically.
+
+    Batches are whole shots or whole CMPs (``spec.trace_order``); each is asked of ``traces``
+    and written at once to ``path + ".partial"``, which is renamed into place when complete, so
+    memory stays flat and no half-written file is ever left under ``path``.
+
+    Parameters
+    ----------
+    path : str or Path
+        Output file; an existing one is replaced.
+    spec : LineSpec
+        Or any object with the same geometry and format attributes (``ncmp``, ``first_cmp``,
+        ``first_cmp_x``, ``line_y``, ``channels``, ``group_interval``, ``shot_interval``,
+        ``near_offset``, ``dt``, ``nsamples``, ``delay``, ``trace_order``, ``sample_format``,
+        ``feet``, ``cdp_header``), e.g. a wave-equation line's spec.
+    geometry : LineGeometry
+        From :func:`line_geometry` of the same spec.
+    traces : callable
+        ``traces(idx) -> ndarray (len(idx), nsamples)``: the samples of the traces ``idx``
+        (indices into the geometry's arrays).
+    text_header : str
+        The textual header (:func:`segy_text_header`).
+
+    Returns
+    -------
+    cmp_x : ndarray, shape (ncmp,)
+        x of each CMP bin centre, m.
+
+    Notes
+    -----
+    Trace headers (SEG-Y rev 1 byte positions): TRACE_SEQUENCE_LINE 1 and TRACE_SEQUENCE_FILE 5
+    (running count), FieldRecord 9 (shot, from 1 along the line), TraceNumber 13 (channel, 1 =
+    near), CDP 21, TraceIdentificationCode 29 (1, seismic), offset 37 (whole metres or feet,
+    positive), SourceGroupScalar 71 (-100), SourceX/Y 73/77, GroupX/Y 81/85, CoordinateUnits 89
+    (1, length), DelayRecordingTime 109 (ms), TRACE_SAMPLE_COUNT 115, TRACE_SAMPLE_INTERVAL 117
+    (us), CDP_X/Y 181/185. Binary header: Interval, Samples, Format, SortingCode (1 as recorded,
+    2 CMP), MeasurementSystem (1 m, 2 ft), SEGYRevision (rev 1), TraceFlag (fixed length).
+    """
+    path = Path(path)
+    shot, chan, bins, s0 = geometry.shot, geometry.chan, geometry.bins, geometry.s0
+    fold = geometry.fold
+    ntr = shot.size
+    blocks = trace_blocks(geometry, spec.trace_order)
+    scale = 1.0 / _FOOT if spec.feet else 1.0
+    x_ref = spec.first_cmp_x - 0.5 * spec.near_offset + s0 * spec.shot_interval
+    cmp_x = spec.first_cmp_x + np.arange(spec.ncmp) * 0.5 * spec.group_interval
+    dt_us = int(round(spec.dt * 1e6))
+    delay_ms = int(round(spec.delay * 1e3))
+
+    def coord(a):
+        return int(round(a * scale * -_COORD_SCALAR))
+
+    seg = segyio.spec()
+    seg.samples = spec.delay * 1e3 + np.arange(spec.nsamples) * spec.dt * 1e3
+    seg.format = spec.sample_format
+    seg.tracecount = ntr
+    seg.endian = "big"
+    tmp = path.with_name(path.name + ".partial")
+    TF, BF = segyio.TraceField, segyio.BinField
+    try:
+        with segyio.create(str(tmp), seg) as f:
+            f.text[0] = text_header
+            f.bin.update(
+                {
+                    BF.Interval: dt_us,
+                    BF.IntervalOriginal: dt_us,
+                    BF.Samples: spec.nsamples,
+                    BF.SamplesOriginal: spec.nsamples,
+                    BF.Format: spec.sample_format,
+                    BF.SortingCode: 1 if spec.trace_order == "shot" else 2,
+                    BF.Traces: spec.channels if spec.trace_order == "shot" else int(fold.max()),
+                    BF.MeasurementSystem: 2 if spec.feet else 1,
+                    BF.SEGYRevision: 1,  # rev 1.0: byte 3501 major, byte 3502 minor
+                    BF.SEGYRevisionMinor: 0,
+                    BF.TraceFlag: 1,
+                    BF.ExtendedHeaders: 0,
+                }
+            )
+            k = 0
+            for idx in blocks:
+                data = np.asarray(traces(idx)).astype(np.float32)
+                for j, i in enumerate(idx):
+                    sx = x_ref + shot[i] * spec.shot_interval
+                    off = geometry.offset[i]
+                    b = bins[i]
+                    f.header[k] = {
+                        TF.TRACE_SEQUENCE_LINE: k + 1,
+                        TF.TRACE_SEQUENCE_FILE: k + 1,
+                        TF.FieldRecord: int(shot[i]) + 1,
+                        TF.TraceNumber: int(chan[i]) + 1,
+                        TF.CDP: spec.first_cmp + int(b) if spec.cdp_header else 0,
+                        TF.TraceIdentificationCode: 1,
+                        TF.offset: int(round(off * scale)),
+                        TF.SourceGroupScalar: _COORD_SCALAR,
+                        TF.SourceX: coord(sx),
+                        TF.SourceY: coord(spec.line_y),
+                        TF.GroupX: coord(sx + off),
+                        TF.GroupY: coord(spec.line_y),
+                        TF.CoordinateUnits: 1,
+                        TF.DelayRecordingTime: delay_ms,
+                        TF.TRACE_SAMPLE_COUNT: spec.nsamples,
+                        TF.TRACE_SAMPLE_INTERVAL: dt_us,
+                        TF.CDP_X: coord(cmp_x[b]) if spec.cdp_header else 0,
+                        TF.CDP_Y: coord(spec.line_y) if spec.cdp_header else 0,
+                    }
+                    f.trace[k] = data[j]
+                    k += 1
+        os.replace(tmp, path)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise
+    return cmp_x
 
 
 def make_line(path, spec=None):
@@ -815,109 +1053,32 @@ def make_line(path, spec=None):
 
     Notes
     -----
-    Trace headers (SEG-Y rev 1 byte positions): TRACE_SEQUENCE_LINE 1 and TRACE_SEQUENCE_FILE 5
-    (running count), FieldRecord 9 (shot, from 1 along the line), TraceNumber 13 (channel, 1 =
-    near), CDP 21, TraceIdentificationCode 29 (1, seismic), offset 37 (whole metres or feet,
-    positive), SourceGroupScalar 71 (-100), SourceX/Y 73/77, GroupX/Y 81/85, CoordinateUnits 89
-    (1, length), DelayRecordingTime 109 (ms), TRACE_SAMPLE_COUNT 115, TRACE_SAMPLE_INTERVAL 117
-    (us), CDP_X/Y 181/185. Binary header: Interval, Samples, Format, SortingCode (1 as recorded,
-    2 CMP), MeasurementSystem (1 m, 2 ft), SEGYRevision (rev 1), TraceFlag (fixed length).
+    The trace and binary headers are those of :func:`write_segy_line`.
     """
     spec = LineSpec() if spec is None else spec
     spec.validate()
     path = Path(path)
-    shot, chan, bins, s0 = _geometry(spec)
+    geom = line_geometry(spec)
+    shot, chan, bins = geom.shot, geom.chan, geom.bins
     synth = _Synth(spec)
-    blocks = _blocks(shot, chan, bins, spec.trace_order)
     ntr = shot.size
-
-    # per-CMP offsets for the truth
-    fold = np.bincount(bins, minlength=spec.ncmp)
-    offs = np.full((spec.ncmp, fold.max()), np.nan)
-    order = np.lexsort((synth.offsets(chan), bins))
-    pos = np.arange(ntr) - np.repeat(np.cumsum(fold) - fold, fold)
-    offs[bins[order], pos] = synth.offsets(chan[order])
 
     signal_rms, noise_rms, multiple_rms = 0.0, 0.0, 0.0
     if np.isfinite(spec.snr):
         # the noise level is set by the primaries alone (LineSpec.snr); multiples are measured too
         ss = np.zeros(2)
-        for i in blocks:
+        for i in trace_blocks(geom, spec.trace_order):
             ss += [float(np.sum(a**2)) for a in synth.parts(chan[i], bins[i])]
         signal_rms, multiple_rms = np.sqrt(ss / (ntr * spec.nsamples))
         noise_rms = signal_rms / spec.snr
 
-    scale = 1.0 / _FOOT if spec.feet else 1.0
-    x_ref = spec.first_cmp_x - 0.5 * spec.near_offset + s0 * spec.shot_interval
-    cmp_x = spec.first_cmp_x + np.arange(spec.ncmp) * 0.5 * spec.group_interval
-    dt_us = int(round(spec.dt * 1e6))
-    delay_ms = int(round(spec.delay * 1e3))
+    def traces(idx):
+        data = synth.signal(chan[idx], bins[idx])
+        if noise_rms > 0:
+            data += noise_rms * synth.noise(shot[idx], chan[idx])
+        return data
 
-    def coord(a):
-        return int(round(a * scale * -_COORD_SCALAR))
-
-    seg = segyio.spec()
-    seg.samples = spec.delay * 1e3 + np.arange(spec.nsamples) * spec.dt * 1e3
-    seg.format = spec.sample_format
-    seg.tracecount = ntr
-    seg.endian = "big"
-    tmp = path.with_name(path.name + ".partial")
-    TF, BF = segyio.TraceField, segyio.BinField
-    try:
-        with segyio.create(str(tmp), seg) as f:
-            f.text[0] = _text_header(spec, ntr)
-            f.bin.update(
-                {
-                    BF.Interval: dt_us,
-                    BF.IntervalOriginal: dt_us,
-                    BF.Samples: spec.nsamples,
-                    BF.SamplesOriginal: spec.nsamples,
-                    BF.Format: spec.sample_format,
-                    BF.SortingCode: 1 if spec.trace_order == "shot" else 2,
-                    BF.Traces: spec.channels if spec.trace_order == "shot" else int(fold.max()),
-                    BF.MeasurementSystem: 2 if spec.feet else 1,
-                    BF.SEGYRevision: 1,  # rev 1.0: byte 3501 major, byte 3502 minor
-                    BF.SEGYRevisionMinor: 0,
-                    BF.TraceFlag: 1,
-                    BF.ExtendedHeaders: 0,
-                }
-            )
-            k = 0
-            for idx in blocks:
-                data = synth.signal(chan[idx], bins[idx])
-                if noise_rms > 0:
-                    data += noise_rms * synth.noise(shot[idx], chan[idx])
-                data = data.astype(np.float32)
-                for j, i in enumerate(idx):
-                    sx = x_ref + shot[i] * spec.shot_interval
-                    off = synth.offsets(chan[i])
-                    b = bins[i]
-                    f.header[k] = {
-                        TF.TRACE_SEQUENCE_LINE: k + 1,
-                        TF.TRACE_SEQUENCE_FILE: k + 1,
-                        TF.FieldRecord: int(shot[i]) + 1,
-                        TF.TraceNumber: int(chan[i]) + 1,
-                        TF.CDP: spec.first_cmp + int(b) if spec.cdp_header else 0,
-                        TF.TraceIdentificationCode: 1,
-                        TF.offset: int(round(off * scale)),
-                        TF.SourceGroupScalar: _COORD_SCALAR,
-                        TF.SourceX: coord(sx),
-                        TF.SourceY: coord(spec.line_y),
-                        TF.GroupX: coord(sx + off),
-                        TF.GroupY: coord(spec.line_y),
-                        TF.CoordinateUnits: 1,
-                        TF.DelayRecordingTime: delay_ms,
-                        TF.TRACE_SAMPLE_COUNT: spec.nsamples,
-                        TF.TRACE_SAMPLE_INTERVAL: dt_us,
-                        TF.CDP_X: coord(cmp_x[b]) if spec.cdp_header else 0,
-                        TF.CDP_Y: coord(spec.line_y) if spec.cdp_header else 0,
-                    }
-                    f.trace[k] = data[j]
-                    k += 1
-        os.replace(tmp, path)
-    except BaseException:
-        tmp.unlink(missing_ok=True)
-        raise
+    cmp_x = write_segy_line(path, spec, geom, traces, _text_header(spec, ntr))
 
     t0 = np.array([zero_offset_times(h, v) for h, v in zip(synth.h, synth.v)])
     vrms = np.array([rms_velocity(h, v) for h, v in zip(synth.h, synth.v)])
@@ -932,8 +1093,8 @@ def make_line(path, spec=None):
         reflection_coefficient=synth.R,
         t0=t0,
         vrms=vrms,
-        offsets=offs,
-        fold=fold.astype(np.int64),
+        offsets=geom.cmp_offsets,
+        fold=geom.fold,
         ntraces=int(ntr),
         signal_rms=float(signal_rms),
         noise_rms=float(noise_rms),
