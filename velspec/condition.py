@@ -873,7 +873,10 @@ def condition_gather(data: np.ndarray, offsets: np.ndarray, dt: float, t_first: 
     if p.mute != "off":
         if p.mute == "auto":
             picks = first_breaks(a, dt, t_first, p.first_break_window)
-            times = fit_first_breaks(x, picks, p.first_break_traces, tolerance=2 * dt) + p.mute_after
+            # never later than the direct wave at mute_velocity: where a reflection is the first
+            # arrival (no direct or head wave recorded) the mute must not eat into it
+            times = np.minimum(fit_first_breaks(x, picks, p.first_break_traces, tolerance=2 * dt),
+                               np.abs(x) / p.mute_velocity) + p.mute_after
         elif p.mute == "linear":
             times = linear_mute_times(x, p.mute_intercept, p.mute_velocity)
         else:

@@ -340,6 +340,8 @@ class ConditionParams:
         m and s, offsets increasing.
     mute_intercept, mute_velocity : float
         The linear mute: s (default 0) and m/s (default 1500, the speed of sound in sea water).
+        The automatic mute lies no later than the direct wave at ``mute_velocity`` either, so
+        that a reflection recorded as the first arrival is not cut.
     mute_after : float
         The automatic mute lies this long after the fitted first breaks, s (default 0.06: one
         and a half periods of a 25 Hz wavelet, so that the first-arrival wavelets themselves go).

@@ -21,6 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
+from .condition import ConditionReport, condition_gather, supergather
 from .cpu import set_threads
 from .errors import InputError
 from .io.hdf5 import read_result
@@ -50,6 +51,8 @@ class CmpOutcome:
     live: int
     dropped_nan: int
     dropped_dead: int
+    clipped: int = 0                 # traces with samples clipped by the conditioning
+    noisy: int = 0                   # traces the conditioning left out as noisy
     picks: np.ndarray | None = None  # pick table (cmp filled); None when the CMP was skipped
     path: np.ndarray | None = None   # traced function, m/s on the t0 axis
     panel: np.ndarray | None = None  # kept for QC only
@@ -186,17 +189,54 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
         pending = pending[drop:]
         nxt -= drop
 
+    conditioned = _Conditioned(line, params)
     for start in range(0, len(positions), params.block):
         block = positions[start: start + params.block]
         for k in block:
-            gather = line.read_gather(int(k))
+            gather, report = conditioned.gather(int(k))
             outcome, panel, best = scan_one(gather, times, line.dt, params, velocities)
             outcome.position = int(k)
+            outcome.clipped, outcome.noisy = report.traces_clipped, report.noisy
             pending.append(_Scanned(int(k), outcome, gather, panel, best))
         yield from ready(float(block[-1]))
         if progress is not None:
             progress(len(block))
     yield from ready(np.inf)
+
+
+class _Conditioned:
+    """Gathers as read, then conditioned (:mod:`velspec.condition`), and combined with their
+    neighbours into a supergather when ``condition.supergather_cmps`` > 1. The few neighbours
+    a supergather needs are held; nothing else is."""
+
+    def __init__(self, line: SegyLine, params: RunParams):
+        self.line, self.params = line, params
+        self.half = (params.condition.supergather_cmps - 1) // 2
+        self.held: dict[int, tuple[Gather, ConditionReport]] = {}
+
+    def _one(self, k: int) -> tuple[Gather, ConditionReport]:
+        if k not in self.held:
+            g = self.line.read_gather(k)
+            data, offsets, report = condition_gather(g.data, g.offsets, self.line.dt, self.line.t_first,
+                                                     self.params.condition)
+            self.held[k] = (Gather(cmp=g.cmp, offsets=offsets, data=data, dropped_nan=g.dropped_nan,
+                                   dropped_dead=g.dropped_dead + report.dead), report)
+        return self.held[k]
+
+    def gather(self, k: int) -> tuple[Gather, ConditionReport]:
+        me, report = self._one(k)
+        if self.half == 0:
+            self.held.clear()
+            return me, report
+        near = [self._one(j)[0] for j in range(max(k - self.half, 0), min(k + self.half + 1, self.line.ncmp))]
+        for j in [j for j in self.held if j < k - self.half]:
+            del self.held[j]
+        near = [g for g in near if g.data.shape[0]]
+        if len(near) < 2 or not me.data.shape[0]:
+            return me, report
+        data, offsets, _ = supergather([(g.data, g.offsets) for g in near], self.params.condition.supergather_bin)
+        return Gather(cmp=me.cmp, offsets=offsets, data=data, dropped_nan=me.dropped_nan,
+                      dropped_dead=me.dropped_dead), report
 
 
 def as_params(params) -> RunParams:
@@ -288,6 +328,8 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
     qc = {"live_traces": np.array([o.live for o in analysed], dtype=np.int32),
           "nan_traces": np.array([o.dropped_nan for o in analysed], dtype=np.int32),
           "dead_traces": np.array([o.dropped_dead for o in analysed], dtype=np.int32),
+          "clipped_traces": np.array([o.clipped for o in analysed], dtype=np.int32),
+          "noisy_traces": np.array([o.noisy for o in analysed], dtype=np.int32),
           "path": paths,
           "water_bottom": sea_floor[rows].astype(np.float64),
           "water_velocity": water_velocity[rows].astype(np.float64),
@@ -355,7 +397,8 @@ def revise_result(result: LineAnalysis | str | Path, edits: dict | str | Path | 
     attrs = {k: v for k, v in result.attrs.items() if k != "format_version"}
     attrs.update(created=now_utc(), parameters=run_params.to_dict(), velspec_version=__version__,
                  revised_from=source, edited_cmps=int(fields.edited_cmps))
-    qc = {k: result.qc[k] for k in ("live_traces", "nan_traces", "dead_traces", "path", "water_bottom",
+    qc = {k: result.qc[k] for k in ("live_traces", "nan_traces", "dead_traces", "clipped_traces", "noisy_traces",
+                                    "path", "water_bottom",
                                     "water_velocity",
                                     "skipped_cmp", "skipped_nan_traces") if k in result.qc}
     return _assemble(result.t0, result.cmp, result.cmp_x, result.cmp_y, picks, fields, qc, result.spectra, attrs, [])

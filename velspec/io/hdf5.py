@@ -40,6 +40,8 @@ _FIELDS = {
     "qc/live_traces": ("1", "traces used"),
     "qc/nan_traces": ("1", "traces left out because they held NaN or infinite samples"),
     "qc/dead_traces": ("1", "traces left out because they were flagged dead or were all zero"),
+    "qc/clipped_traces": ("1", "traces with spikes clipped by the conditioning"),
+    "qc/noisy_traces": ("1", "traces the conditioning left out as noisy against their neighbours in offset"),
     "qc/no_picks": ("1", "1 where no pick passed the thresholds and the traced function was used"),
     "qc/forced_count": ("1", "pick intervals whose interval velocity the bounds changed"),
     "qc/vint_forced": ("1", "1 where the physical bounds changed vint by more than 1 m/s"),
