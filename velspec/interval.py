@@ -140,6 +140,7 @@ class Fields:
     forced_count: int
     vint_sigma: np.ndarray | None = None
     pick_vint_sigma: np.ndarray | None = None
+    vrms_sigma: np.ndarray | None = None
 
 
 def fields_from_picks(t0_axis: np.ndarray, pick_t0: np.ndarray, pick_v: np.ndarray,
@@ -149,7 +150,9 @@ def fields_from_picks(t0_axis: np.ndarray, pick_t0: np.ndarray, pick_v: np.ndarr
     Between picks t0 * vrms^2 is linear (constant interval velocity); above the first pick the
     stacking velocity is held at the first pick's value (one layer from time zero); below the
     last pick the last constrained interval velocity continues. With ``pick_sigma`` (m/s) the
-    interval-velocity uncertainty (:func:`dix_sigma`) comes too, on every sample and per pick.
+    uncertainties come too: per pick the Dix propagation (:func:`dix_sigma`), and on every
+    sample that and the picks' sigma, each grown with the distance to the nearest picks
+    (:func:`gap_sigma`).
     """
     keep = pick_t0 > 0
     pick_t0, pick_v = pick_t0[keep], pick_v[keep]
@@ -173,8 +176,46 @@ def fields_from_picks(t0_axis: np.ndarray, pick_t0: np.ndarray, pick_v: np.ndarr
     if pick_sigma is not None:
         per_pick = dix_sigma(pick_t0, pick_v, np.asarray(pick_sigma)[keep], dix.vint)
         fields.pick_vint_sigma = per_pick.astype(np.float32)
-        fields.vint_sigma = per_pick[k_int].astype(np.float32)
+        # the picks' own uncertainty, and what the distance to the nearest picks adds
+        s_pick = np.interp(t, pick_t0, np.asarray(pick_sigma, dtype=np.float64)[keep])
+        fields.vrms_sigma = np.hypot(s_pick, gap_sigma(t, pick_t0, VRMS_DRIFT) * vrms).astype(np.float32)
+        fields.vint_sigma = np.hypot(per_pick[k_int], gap_sigma(t, pick_t0, VINT_DRIFT) * vint).astype(np.float32)
     return fields
+
+
+VRMS_DRIFT = 0.03   # relative stacking-velocity uncertainty one second from the nearest pick, per sqrt(s)
+VINT_DRIFT = 0.10   # the same for the interval velocity
+
+
+def gap_sigma(t0_axis: np.ndarray, pick_t0: np.ndarray, drift: float) -> np.ndarray:
+    """Relative uncertainty that the distance to the picks adds to a field at each sample.
+
+    Between two picks t_a < t < t_b the field is an interpolation, and the earth may do
+    anything there that the picks do not see: modelled as a random walk tied down at both picks
+    (a Brownian bridge), whose standard deviation is ``drift * sqrt((t - t_a)(t_b - t) /
+    (t_b - t_a))``; beyond the first or last pick, free: ``drift * sqrt(|t - t_end|)``. Zero at
+    the picks, largest in the middle of a long gap.
+
+    Parameters
+    ----------
+    t0_axis : ndarray (nt,)
+        Times, s.
+    pick_t0 : ndarray (n,)
+        Times of the used picks, s, increasing (at least one).
+    drift : float
+        Relative standard deviation after one second, per sqrt(s).
+    """
+    t = np.asarray(t0_axis, dtype=np.float64)
+    p = np.asarray(pick_t0, dtype=np.float64)
+    k = np.searchsorted(p, t)
+    out = np.empty(t.size)
+    inside = (k > 0) & (k < p.size)
+    a, b = p[np.maximum(k - 1, 0)], p[np.minimum(k, p.size - 1)]
+    span = np.where(inside, b - a, 1.0)
+    out[inside] = np.sqrt(np.maximum((t - a) * (b - t), 0.0) / span)[inside]
+    out[k == 0] = np.sqrt(np.abs(p[0] - t[k == 0]))
+    out[k >= p.size] = np.sqrt(np.abs(t[k >= p.size] - p[-1]))
+    return drift * out
 
 
 def depth_fields(t0_axis: np.ndarray, vint: np.ndarray, dz: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -21,6 +21,9 @@ from .params import RunParams
 from .result import empty_picks, sort_picks
 
 EDITED_SIGMA = 0.01    # uncertainty given to a person's pick, as a fraction of its velocity
+LONG_GAP = 0.4         # s: a gap between used picks this long leaves the field to interpolation
+SUPPORT = 1.5          # a neighbour's field is supported within this many min_separation of its picks
+MIN_NEIGHBOURS = 3     # supported neighbours needed to call a pick a lateral outlier
 FALLBACK_SIGMA = 0.05  # the same for the traced function where a CMP has no pick: poor, and said so
 
 
@@ -50,6 +53,7 @@ class LineFields:
     vint: np.ndarray
     vint_raw: np.ndarray
     vint_sigma: np.ndarray
+    vrms_sigma: np.ndarray
     forced: np.ndarray
     forced_count: np.ndarray
     no_picks: np.ndarray
@@ -128,12 +132,17 @@ def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrm
     The median over +-``lateral_cmps`` CMPs at each t0 follows a step in velocity (a fault, a
     change of facies) where a mean would smear it; a pick is an outlier only where it differs
     from it by more than ``outlier_tolerance`` and by more than ``outlier_sigmas`` of its own
-    uncertainty. A person's picks are never rejected. Returns the rows with a pick flagged.
+    uncertainty. Only the neighbours whose own field is supported there count (a used pick of
+    theirs within :data:`SUPPORT` of ``min_separation``): an extrapolated field is no reference,
+    and fewer than :data:`MIN_NEIGHBOURS` such neighbours leave the pick untested. A person's
+    picks are never rejected. Returns the rows with a pick flagged.
     """
     pp = params.pick
     if pp.lateral_cmps == 0 or len(slices) < 3:
         return []
     k = pp.lateral_cmps
+    used_t = [picks["t0"][s][used_mask(picks["flags"][s])] for s in slices]
+    reach = SUPPORT * pp.min_separation
     flagged = []
     for row, rows in enumerate(slices):
         p = picks[rows]
@@ -142,22 +151,36 @@ def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrm
             continue
         # the median over the neighbours' fields at this CMP's pick times only; the window
         # shrinks at the ends of the line rather than repeating the end CMP
-        near = vrms[max(row - k, 0): row + k + 1]
+        lo = max(row - k, 0)
+        near = vrms[lo: row + k + 1]
         cols = np.clip(np.searchsorted(t0, p["t0"]), 0, t0.size - 1)
         if np.array_equal(t0[cols], p["t0"]):      # automatic picks sit on samples: no interpolation
-            ref = np.median(near[:, cols], axis=0)
+            values = near[:, cols]
         else:
-            ref = np.median(np.stack([np.interp(p["t0"], t0, f) for f in near]), axis=0)
+            values = np.stack([np.interp(p["t0"], t0, f) for f in near])
+        supported = np.stack([np.array([ut.size > 0 and np.min(np.abs(ut - t)) <= reach for t in p["t0"]])
+                              for ut in used_t[lo: row + k + 1]])
+        supported[row - lo] = False    # the CMP itself is no witness
+        enough = supported.sum(axis=0) >= MIN_NEIGHBOURS
+        ref = np.nanmedian(np.where(supported, values, np.nan), axis=0) if enough.any() else np.zeros(p.size)
         dev = np.abs(p["vrms"] - ref)
-        bad = candidate & (dev > pp.outlier_tolerance * ref) & (dev > pp.outlier_sigmas * p["sigma"])
+        bad = (candidate & enough & (dev > pp.outlier_tolerance * ref) & (dev > pp.outlier_sigmas * p["sigma"]))
         if bad.any():
             picks["flags"][np.arange(rows.start, rows.stop)[bad]] |= int(Flag.lateral_outlier)
             flagged.append(row)
     return flagged
 
 
-def cmp_quality(p: np.ndarray, fallback: bool, forced_count: int, params: RunParams) -> int:
-    """0 good, 1 fair, 2 poor for one CMP's picks ``p`` (see the README's table of the rule)."""
+def cmp_quality(p: np.ndarray, fallback: bool, forced_count: int, params: RunParams,
+                t_end: float = np.inf) -> int:
+    """0 good, 1 fair, 2 poor for one CMP's picks ``p`` (see the README's table of the rule).
+
+    Among the rules: a CMP whose used picks leave a gap longer than :data:`LONG_GAP` across a
+    coherent event that was rejected against its neighbours (coherence at least
+    ``doubtful_coherence``, flagged as an impossible interval velocity or a lateral outlier; a
+    predicted multiple is explained) is at best fair: its field there is an interpolation
+    across what the data show.
+    """
     flags = p["flags"]
     use = used_mask(flags)
     if fallback or use.sum() < 2:
@@ -170,9 +193,24 @@ def cmp_quality(p: np.ndarray, fallback: bool, forced_count: int, params: RunPar
     low = use & ((flags & int(Flag.low_coherence)) != 0)
     at_bound = use & ((flags & int(Flag.at_bound)) != 0)
     if (forced_count > 0 or at_bound.any() or rejected.sum() > 0.25 * max(candidates.sum(), 1)
-            or rel > 0.5 * params.pick.doubtful_sigma or low.sum() > 0.5 * use.sum()):
+            or rel > 0.5 * params.pick.doubtful_sigma or low.sum() > 0.5 * use.sum()
+            or _gap_across_rejected(p, use, params, t_end)):
         return 1
     return 0
+
+
+def _gap_across_rejected(p: np.ndarray, use: np.ndarray, params: RunParams, t_end: float) -> bool:
+    knots = p["t0"][use]
+    gaps = np.flatnonzero(np.diff(knots) > LONG_GAP)
+    if not gaps.size:
+        return False
+    # a predicted multiple is explained; an event rejected against its neighbours is not
+    strong = ~use & (p["coherence"] >= params.pick.doubtful_coherence) & (
+        (p["flags"] & int(Flag.lateral_outlier | Flag.impossible_interval_velocity)) != 0)
+    for g in gaps:
+        if np.any(strong & (p["t0"] > knots[g]) & (p["t0"] < knots[g + 1])):
+            return True
+    return False
 
 
 def _cmp_fields(t0: np.ndarray, p: np.ndarray, path: np.ndarray, params: RunParams):
@@ -225,6 +263,7 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
     vint = np.empty_like(vrms)
     vint_raw = np.empty_like(vrms)
     vint_sigma = np.empty_like(vrms)
+    vrms_sigma = np.empty_like(vrms)
     forced = np.zeros((ncmp, nt), dtype=np.uint8)
     forced_count = np.zeros(ncmp, dtype=np.int32)
     no_picks = np.zeros(ncmp, dtype=np.uint8)
@@ -236,10 +275,11 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
         p = picks[slices[row]]
         f, use, fallback = _cmp_fields(t0, p, paths[row], params)
         vrms[row], vint[row], vint_raw[row], vint_sigma[row] = f.vrms, f.vint, f.vint_raw, f.vint_sigma
+        vrms_sigma[row] = f.vrms_sigma
         forced[row] = f.forced
         forced_count[row] = f.forced_count
         no_picks[row] = fallback
-        quality[row] = cmp_quality(p, fallback, f.forced_count, params)
+        quality[row] = cmp_quality(p, fallback, f.forced_count, params, t_end=float(t0[-1]))
         ps = np.full(p.size, np.nan, np.float32)
         if not fallback:
             ps[use] = f.pick_vint_sigma
@@ -254,7 +294,8 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
     for row in lateral_outliers(t0, picks, slices, vrms, params):   # judged on the first fields, then redone
         fill(row)
     z, t_of_z, vint_z = depth_fields(t0, vint, params.interval.dz)
-    return picks, LineFields(vrms=vrms, vint=vint, vint_raw=vint_raw, vint_sigma=vint_sigma, forced=forced,
+    return picks, LineFields(vrms=vrms, vint=vint, vint_raw=vint_raw, vint_sigma=vint_sigma,
+                             vrms_sigma=vrms_sigma, forced=forced,
                              forced_count=forced_count, no_picks=no_picks, quality=quality, eta=eta, z=z,
                              depth_t0=t_of_z, depth_vint=vint_z, edited_cmps=changed)
 

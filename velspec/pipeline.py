@@ -344,7 +344,8 @@ def _assemble(t0, cmp, cmp_x, cmp_y, picks, fields: LineFields, qc, spectra, att
     qc.update(no_picks=fields.no_picks, quality=fields.quality, forced_count=fields.forced_count,
               vint_forced=fields.forced, vint_raw=fields.vint_raw)
     return LineAnalysis(cmp=cmp, cmp_x=cmp_x, cmp_y=cmp_y, t0=t0, vrms=fields.vrms, vint=fields.vint,
-                        vint_sigma=fields.vint_sigma, picks=picks, qc=qc, spectra=spectra,
+                        vint_sigma=fields.vint_sigma, vrms_sigma=fields.vrms_sigma, picks=picks, qc=qc,
+                        spectra=spectra,
                         depth=DepthFields(z=fields.z, t0=fields.depth_t0, vint=fields.depth_vint),
                         eta=fields.eta, attrs=attrs, warnings=warnings_out)
 

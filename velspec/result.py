@@ -124,6 +124,9 @@ class LineAnalysis:
         Constrained Dix interval velocity in time, m/s, inside the physical range.
     vint_sigma : float32 (ncmp, nt)
         One-standard-deviation uncertainty of ``vint``, m/s.
+    vrms_sigma : float32 (ncmp, nt) or None
+        One-standard-deviation uncertainty of ``vrms``, m/s: the picks' own, grown between
+        distant picks.
     picks : structured ndarray of :data:`PICK_DTYPE`
         Every pick and likely multiple, sorted by CMP and t0.
     qc : dict of ndarray
@@ -152,6 +155,7 @@ class LineAnalysis:
     vint: np.ndarray
     vint_sigma: np.ndarray
     picks: np.ndarray
+    vrms_sigma: np.ndarray | None = None
     qc: dict = field(default_factory=dict)
     spectra: Spectra | None = None
     depth: DepthFields | None = None

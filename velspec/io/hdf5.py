@@ -33,7 +33,9 @@ _FIELDS = {
     "t0": ("s", "zero-offset two-way time from the traces' time zero"),
     "vrms": ("m/s", "stacking velocity: best-fit hyperbola over the offsets used; t0*vrms^2 linear between picks"),
     "vint": ("m/s", "constrained Dix interval velocity in time, inside the physical range"),
-    "vint_sigma": ("m/s", "one-standard-deviation uncertainty of vint, propagated from the picks' sigma through Dix"),
+    "vint_sigma": ("m/s", "one-standard-deviation uncertainty of vint: the picks' sigma through Dix, grown "
+                          "between distant picks"),
+    "vrms_sigma": ("m/s", "one-standard-deviation uncertainty of vrms: the picks' sigma, grown between distant picks"),
     "eta": ("1", "anellipticity of the nonhyperbolic moveout (Alkhalifah & Tsvankin, 1995), linear between picks"),
     "picks/used": ("1", "1 where the pick entered the velocity fields"),
     "qc/quality": ("1", "per CMP: 0 good, 1 fair, 2 poor (README: quality per CMP)"),
@@ -125,8 +127,9 @@ def _write(h5: h5py.File, r: LineAnalysis) -> None:
 
     for name in ("cmp_x", "cmp_y"):
         field(name, getattr(r, name), ("cmp",))
-    for name in ("vrms", "vint", "vint_sigma"):
-        field(name, getattr(r, name), _AXES_CMP_T0)
+    for name in ("vrms", "vint", "vint_sigma", "vrms_sigma"):
+        if getattr(r, name) is not None:
+            field(name, getattr(r, name), _AXES_CMP_T0)
     if r.eta is not None:
         field("eta", r.eta, _AXES_CMP_T0)
 
@@ -246,5 +249,6 @@ def _from_datasets(d: dict, attrs: dict) -> LineAnalysis:
         cmp_y=d.get("cmp_y", np.zeros(d["cmp"].size)), t0=d["t0"].astype(np.float64), vrms=vrms,
         vint=d["vint"].astype(np.float32),
         vint_sigma=(vint_sigma if vint_sigma is not None else np.full_like(vrms, np.nan)),
-        picks=picks, qc={k.split("/", 1)[1]: v for k, v in d.items() if k.startswith("qc/")},
+        picks=picks, vrms_sigma=d.get("vrms_sigma"),
+        qc={k.split("/", 1)[1]: v for k, v in d.items() if k.startswith("qc/")},
         spectra=spectra, depth=depth, regularised=regularised, eta=d.get("eta"), attrs=attrs)

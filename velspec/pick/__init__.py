@@ -93,7 +93,7 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         reach = lambda j, v: np.searchsorted(ranked, v * np.maximum(t0[j], 0.0) * factor, side="right")  # noqa: E731
     picks, path = _pick_along_path(panel, velocities, t0, params, bounds, vint_bounds, search, reach)
     known, explained = classify_multiples(picks, slow_events(panel, velocities, t0, path, reach, params), params,
-                                          sea_floor, vint_bounds)
+                                          sea_floor, vint_bounds, panel, velocities, t0)
     blank = panel
     for _ in range(MAX_PASSES - 1):
         from_path = np.isin(known["t0"], picks["t0"]) & ((known["flags"] & _MULTIPLE) != 0)
@@ -107,7 +107,7 @@ def pick_panel(panel: np.ndarray, velocities: np.ndarray, t0: np.ndarray, params
         again = slow_events(blank, velocities, t0, path, reach, params)
         prior = known[(known["flags"] & _MULTIPLE) != 0]
         known, explained = classify_multiples(picks, np.concatenate([prior, again]), params, sea_floor,
-                                              vint_bounds)
+                                              vint_bounds, panel, velocities, t0)
     mult = (known["flags"] & _MULTIPLE) != 0
     picks, explained, multiples = known[~mult], explained[~mult], known[mult]
     lo_floor, hi_floor = (np.interp(floor_t, t0, b) for b in bounds) if np.isfinite(floor_t) else (0.0, 0.0)

@@ -27,11 +27,16 @@ SLOW = 1 << 15          # working mark of an event found below the traced functi
 MAX_WATER_ORDER = 6     # water round trips predicted for reverberations and peg-legs
 STRONG = 0.5            # coherence of a primary strong enough to make a surface multiple of its own
 WATER_TIME_ERROR = 0.004  # s: how far the sea floor's time may be off, per trip through the water
+PANEL_RATIO = 0.6         # coherence of a peg-leg's primary, at least, relative to the peg-leg's
+PANEL_MIN_SHIFT = 0.03    # the primary must lie this much faster than the peg-leg for the panel to tell
+PANEL_VELOCITY = 0.01     # half width of the velocity window searched for it
 
 
 def classify_multiples(picks: np.ndarray, slow: np.ndarray, params,
                        sea_floor: tuple[float, float] = (float("nan"), float("nan")),
-                       vint_bounds: tuple[float, float] | None = None) -> tuple[np.ndarray, np.ndarray]:
+                       vint_bounds: tuple[float, float] | None = None, panel: np.ndarray | None = None,
+                       velocities: np.ndarray | None = None,
+                       t0: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
     """Picks and slow events together, time-ordered, the likely multiples flagged, and why.
 
     A multiple is recognised by prediction, not by slowness alone. Flat layers make every
@@ -41,7 +46,8 @@ def classify_multiples(picks: np.ndarray, slow: np.ndarray, params,
 
     - with a sea floor at t_w (found in the data, given, or inferred from its reverberations):
       its reverberations at (m + 1) t_w with the water velocity, and the peg-legs
-      t_p + j t_w of every primary p above (j up to :data:`MAX_WATER_ORDER`);
+      t_p + j t_w of every primary p above (j up to :data:`MAX_WATER_ORDER`), picked or only
+      seen as coherence in the panel;
     - the surface multiples t_a + t_b of strong primaries (coherence >= :data:`STRONG`);
     - without a sea floor, any earlier event combined with an earlier primary.
 
@@ -63,6 +69,9 @@ def classify_multiples(picks: np.ndarray, slow: np.ndarray, params,
         (then ``params.water_bottom`` or an inference from the picks is tried).
     vint_bounds : (vmin, vmax), optional
         Physical interval-velocity range, m/s (default ``(1400, 7000)``).
+    panel, velocities, t0 : optional
+        The coherence panel (nv, nt) with its axes: with a sea floor, an event is a peg-leg also
+        when the panel holds its primary, picked or not (:func:`_peg_leg_in_panel`).
 
     Returns
     -------
@@ -86,9 +95,13 @@ def classify_multiples(picks: np.ndarray, slow: np.ndarray, params,
         inferred = infer_sea_floor(t, v, flags, params)
         floor, water_v = (-1.0, water_v) if inferred is None else inferred
     lo, hi = vint_bounds if vint_bounds is not None else (1400.0, 7000.0)
+    if panel is None:
+        panel, velocities, t0 = np.zeros((1, 1), np.float32), np.zeros(1), np.zeros(2)
+    dt = float(t0[1] - t0[0]) if t0.size > 1 else 1.0
     _mark_predicted(t, v, c, flags, explained, float(floor), float(water_v), params.multiple_time_tolerance,
                     params.multiple_velocity_tolerance, STRONG, float(lo), float(hi), params.min_separation,
-                    MULTIPLE, INVERSION, SLOW)
+                    MULTIPLE, INVERSION, SLOW, np.ascontiguousarray(panel, dtype=np.float32),
+                    np.ascontiguousarray(velocities, dtype=np.float64), float(t0[0]), dt)
     events["flags"] = flags & np.uint16(~SLOW & 0xFFFF)
     return events, explained
 
@@ -127,9 +140,45 @@ def _pair(ti, vi, a_t, a_v, p_t, p_v, tol_t, tol_v):
 
 
 @njit(cache=True, nogil=True)
-def _predicted(i, t, v, c, flags, wb, vw, tol_t, tol_v, strong, bit):
+def _peg_leg_in_panel(panel, vel, t_first, dt, ti, vi, ci, wb, vw, tol_t, tol_v):
+    """True when the panel holds, at the place a peg-leg (ti, vi) with j water trips would come
+    from, (ti - j wb, vp) with ti vi^2 = (ti - j wb) vp^2 + j wb vw^2, coherence of at least
+    PANEL_RATIO times the event's own: its primary, picked or not. A primary on the trend maps
+    to a place faster than the trend there, where nothing is."""
+    nv, nt = panel.shape
+    for j in range(1, MAX_WATER_ORDER + 1):
+        tp = ti - j * wb
+        if tp < wb:
+            break
+        u = (ti * vi * vi - j * wb * vw * vw) / tp
+        if u <= 0:
+            continue
+        vp = np.sqrt(u)
+        if vp < vi * (1.0 + PANEL_MIN_SHIFT):
+            # a primary maps to a place as near the trend as its peg-leg would: no telling them apart
+            continue
+        reach = tol_t + j * WATER_TIME_ERROR
+        a = max(int(np.floor((tp - reach - t_first) / dt)), 0)
+        b = min(int(np.ceil((tp + reach - t_first) / dt)), nt - 1)
+        r0 = max(np.searchsorted(vel, vp * (1.0 - PANEL_VELOCITY)), 0)
+        r1 = min(np.searchsorted(vel, vp * (1.0 + PANEL_VELOCITY), side="right"), nv)
+        best = 0.0
+        for r in range(r0, r1):
+            for k in range(a, b + 1):
+                if panel[r, k] > best:
+                    best = panel[r, k]
+        if best >= PANEL_RATIO * ci:
+            return True
+    return False
+
+
+@njit(cache=True, nogil=True)
+def _predicted(i, t, v, c, flags, wb, vw, tol_t, tol_v, strong, bit, panel, vel, t_first, dt):
     """True when the sea floor or earlier primaries predict event i within the tolerances."""
     ti, vi = t[i], v[i]
+    if wb > 0 and panel.shape[1] > 1 and _peg_leg_in_panel(panel, vel, t_first, dt, ti, vi, c[i], wb, vw, tol_t,
+                                                              tol_v):
+        return True
     if wb > 0:
         # an error in the sea floor's time adds up with every trip through the water
         for m in range(1, MAX_WATER_ORDER + 1):          # reverberations of the sea floor
@@ -156,7 +205,7 @@ def _predicted(i, t, v, c, flags, wb, vw, tol_t, tol_v, strong, bit):
 
 @njit(cache=True, nogil=True)
 def _mark_predicted(t, v, c, flags, explained, wb, vw, tol_t, tol_v, strong, vint_lo, vint_hi, reach, bit,
-                    inversion, slow):
+                    inversion, slow, panel, vel, t_first, dt):
     """Set ``bit`` (in place) on predicted multiples, on unexplained slow events that imply an
     impossible interval velocity and on multiples' smears; ``inversion`` on the slow events kept
     as primaries; ``explained`` where a prediction lies within twice the tolerances."""
@@ -165,11 +214,12 @@ def _mark_predicted(t, v, c, flags, explained, wb, vw, tol_t, tol_v, strong, vin
         if flags[i] & bit:
             explained[i] = True
             continue
-        if _predicted(i, t, v, c, flags, wb, vw, tol_t, tol_v, strong, bit):
+        if _predicted(i, t, v, c, flags, wb, vw, tol_t, tol_v, strong, bit, panel, vel, t_first, dt):
             flags[i] |= bit
             explained[i] = True
             continue
-        explained[i] = _predicted(i, t, v, c, flags, wb, vw, 2 * tol_t, 2 * tol_v, strong, bit)
+        explained[i] = _predicted(i, t, v, c, flags, wb, vw, 2 * tol_t, 2 * tol_v, strong, bit, panel, vel,
+                                  t_first, dt)
         if not flags[i] & slow:
             continue
         # slower than the trend and no multiple explains it: a primary of an inversion when the

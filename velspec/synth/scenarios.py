@@ -104,6 +104,31 @@ def gas_sand_spec(*, snr: float = 2.0, seed: int = 23, ncmp: int = 48, **extra) 
     return LineSpec(ncmp=ncmp, model=(thickness, velocity), snr=snr, seed=seed, **args)
 
 
+def wave_f03_spec(water: float = 60.0, *, snr: float = 2.0, step: float = 0.03, seed: int = 31, ncmp: int = 48,
+                  nsamples: int = 625):
+    """A line modelled by the 2D acoustic wave equation over the F03-02 log (20 m blocks, an
+    assumed 1650 m/s overburden, Gardner densities, 1025 kg/m^3 water), with ``water`` m of sea
+    water and, past the middle CMP, sediments ``step`` faster (a fault or facies change): direct
+    and head waves, guided waves, ghosts and every multiple come from the physics.
+    """
+    from velspec.synth.waveline import WaveLineSpec, sonic_wave_model
+
+    h, v, rho = sonic_wave_model(WELLS / "F03-02.las", water_depth=water)
+    vb = v * np.r_[1.0, np.full(v.size - 1, 1.0 + step)]
+    rho_b = np.r_[rho[0], 310.0 * vb[1:] ** 0.25]
+    return WaveLineSpec(ncmp=ncmp, nsamples=nsamples, snr=snr, model=(h, v), density=rho, model_b=(h, vb),
+                        density_b=rho_b, step_cmp=1001 + ncmp // 2, seed=seed)
+
+
+def make_scenario_line(path, spec):
+    """Write the line of a scenario spec (ray-traced or wave-equation) and return its truth."""
+    if type(spec).__name__ == "WaveLineSpec":
+        from velspec.synth.waveline import make_wave_line
+
+        return make_wave_line(path, spec)
+    return make_line(path, spec)
+
+
 def p135_spec(**kw) -> LineSpec:
     """Short-time line over P-135: 2 ms sampling and a 40 Hz wavelet, as a shallow survey would
     record; overburden assumed 259 m at 2800 m/s."""
@@ -130,6 +155,14 @@ def scenarios() -> dict:
     if (WELLS / "P-135.las").exists():
         out["p135"] = (p135_spec(), p135_params())
     return out
+
+
+def wave_scenarios() -> dict:
+    """The wave-equation lines over F03-02 (60, 150 and 300 m of water, a 3 % step)."""
+    if not (WELLS / "F03-02.las").exists():
+        return {}
+    return {f"wave water {w:.0f} m": (wave_f03_spec(w, snr=snr), None)
+            for w, snr in ((60.0, 2.0), (150.0, 1.5), (300.0, 2.0))}
 
 
 def variants() -> dict:
@@ -166,7 +199,7 @@ def run_scenario(name: str, spec: LineSpec, workdir: str | Path, params: RunPara
     from velspec.pipeline import run_line
 
     path = Path(workdir) / f"{name}.sgy"
-    truth = make_line(path, spec)
+    truth = make_scenario_line(path, spec)
     params = params or RunParams().validate()
     start = time.perf_counter()
     result = run_line(path, params)

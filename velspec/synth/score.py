@@ -39,6 +39,7 @@ class Score:
     used_picks: int
     flagged_multiples: int
     field_errors: np.ndarray = None      # every (CMP, t0 sample) from tmin to the deepest reflector
+    field_z: np.ndarray = None           # the same over the stated vrms_sigma
     sea_floor_errors: np.ndarray = None  # |found - true| water-bottom time per CMP, s (NaN: not found)
 
     def summary(self) -> dict:
@@ -54,6 +55,8 @@ class Score:
             f = self.field_errors
             out.update(field_median_pct=pct(f, 50), field_p95_pct=pct(f, 95), field_max_pct=pct(f, 100),
                        field_checked=int(f.size))
+        if self.field_z is not None and self.field_z.size:
+            out.update(field_within_2sigma_pct=float(100 * np.mean(self.field_z <= 2.0)))
         if self.sea_floor_errors is not None:
             e = self.sea_floor_errors
             out.update(sea_floor_within_8ms_pct=float(100 * np.mean(np.nan_to_num(e, nan=1.0) <= 0.008)),
@@ -72,7 +75,8 @@ def true_rms(thickness: np.ndarray, velocity: np.ndarray, t: np.ndarray) -> np.n
     return np.sqrt(integral / np.maximum(t, 1e-12))
 
 
-def field_errors(result, truth, vstack: np.ndarray, tmin: float = 0.3, min_reflectivity: float = 1e-3) -> np.ndarray:
+def field_errors(result, truth, vstack: np.ndarray, tmin: float = 0.3, min_reflectivity: float = 1e-3,
+                 sigma: bool = False):
     """Relative error of the stacking-velocity field on every t0 sample from ``tmin`` to the
     deepest reflector, against the band from the true RMS velocity to the best-fit stacking
     velocity of the exact times.
@@ -81,8 +85,9 @@ def field_errors(result, truth, vstack: np.ndarray, tmin: float = 0.3, min_refle
     the layers) and that times the ratio of best-fit stacking to RMS velocity, interpolated
     linearly in time between the reflectors (held beyond the first and last): the spread-length
     bias varies slowly with time, the RMS velocity does not need to be interpolated at all.
+    With ``sigma``, the same samples' error over the result's stated ``vrms_sigma`` too.
     """
-    out = []
+    out, zs = [], []
     for row, cmp in enumerate(result.cmp):
         b = int(np.flatnonzero(truth.cmp == cmp)[0])
         t_ref = truth.t0[b]
@@ -96,8 +101,14 @@ def field_errors(result, truth, vstack: np.ndarray, tmin: float = 0.3, min_refle
         ratio = np.interp(t, t_ref[ok], vstack[b][ok] / truth.vrms[b][ok])
         lo, hi = np.minimum(rms, rms * ratio), np.maximum(rms, rms * ratio)
         got = result.vrms[row][sel].astype(np.float64)
-        out.append(np.where(got < lo, lo - got, np.where(got > hi, got - hi, 0.0)) / hi)
-    return np.concatenate(out) if out else np.zeros(0)
+        miss = np.where(got < lo, lo - got, np.where(got > hi, got - hi, 0.0))
+        out.append(miss / hi)
+        if sigma and result.vrms_sigma is not None:
+            zs.append(miss / np.maximum(result.vrms_sigma[row][sel].astype(np.float64), 1e-6))
+    errors = np.concatenate(out) if out else np.zeros(0)
+    if sigma:
+        return errors, (np.concatenate(zs) if zs else None)
+    return errors
 
 
 def sea_floor_errors(result, truth) -> np.ndarray | None:
@@ -174,7 +185,8 @@ def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: fl
             near_m = (np.abs(mt - pick_t[i]) < dt_tol) & (np.abs(pick_v[i] - mv) < dv_tol * mv)
             if near_m.any() and not near_p.any():
                 on_multiple += 1
+    fe = field_errors(result, truth, vstack, tmin, min_reflectivity, sigma=True)
     return Score(vrms_errors=vrms_err, vint_errors=vint_err, picks_on_multiples=on_multiple,
                  used_picks=int(used.sum()), flagged_multiples=int(((flags & int(Flag.likely_multiple)) != 0).sum()),
-                 field_errors=field_errors(result, truth, vstack, tmin, min_reflectivity),
+                 field_errors=fe[0], field_z=fe[1],
                  sea_floor_errors=sea_floor_errors(result, truth))
