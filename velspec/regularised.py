@@ -180,7 +180,7 @@ def _cg_apply(p_old, z, beta, p_new, q, rows, dt, pstart, pcell, palpha, pw, wt,
 
 
 @njit(cache=True, nogil=True, parallel=True)
-def _cg_update(x, r, z, p, q, alpha, dt, d0, d1, d2, free, rz_rows, rr_rows):
+def _cg_update(x, r, z, p, q, alpha, idt, d0, d1, d2, free, rz_rows, rr_rows):
     """x += alpha p, r -= alpha q, z = M^-1 r, with the row sums of r . z and r . r."""
     ncmp, n = x.shape
     for c in prange(ncmp):
@@ -191,7 +191,7 @@ def _cg_update(x, r, z, p, q, alpha, dt, d0, d1, d2, free, rz_rows, rr_rows):
             r[c, j] = rj
             rr += rj * rj
         y = np.empty(n)
-        _solve_row(r[c], z[c], dt, d0[c], d1[c], d2[c], free[c], y)
+        _solve_row(r[c], z[c], idt, d0[c], d1[c], d2[c], free[c], y)
         rz = 0.0
         for j in range(n):
             rz += r[c, j] * z[c, j]
@@ -235,7 +235,7 @@ def _factor_row(c, dt, pstart, pcell, palpha, pw, wt, lat, cw, free_row, d0r, d1
     H_c = S^T K_c S with S the cumulative sum; K_c is pentadiagonal: the picks interpolate B,
     a diagonal term in u is a first difference of B, a first difference of u a second one. A
     bound-held cell adds pen[j] (FIXED_WEIGHT times its diagonal) to the diagonal in u. On
-    return d0r holds D, d1r and d2r the first and second subdiagonals of L.
+    return d0r holds 1 / D, d1r and d2r the first and second subdiagonals of L.
     """
     ncmp = wt.shape[0]
     n = d0r.size
@@ -314,6 +314,8 @@ def _factor_row(c, dt, pstart, pcell, palpha, pw, wt, lat, cw, free_row, d0r, d1
             d1r[j] = e / dj
         if j < n - 2:
             d2r[j] = d2r[j] / dj
+    for j in range(n):
+        d0r[j] = 1.0 / d0r[j]           # the solves multiply
 
 
 @njit(cache=True, nogil=True, parallel=True)
@@ -326,45 +328,40 @@ def _factor(dt, pstart, pcell, palpha, pw, wt, lat, cw, free, d0, d1, d2):
 
 
 @njit(cache=True, nogil=True)
-def _solve_row(r, z, dt, d0, d1, d2, free, y):
-    """z = H_c^-1 r = S^-1 K_c^-1 S^-T r for one CMP (1-D rows), 0 on held cells."""
+def _solve_row(r, z, idt, d0, d1, d2, free, y):
+    """z = H_c^-1 r = S^-1 K_c^-1 S^-T r for one CMP (1-D rows, idt = 1 / dt, d0 = 1 / D), 0 on
+    held cells; y is scratch."""
     n = r.size
-    # y = S^-T r
+    # y = L^-1 S^-T r
     for j in range(n):
-        v = r[j] / dt[j]
+        v = r[j] * idt[j]
         if j < n - 1:
-            v -= r[j + 1] / dt[j + 1]
-        y[j] = v
-    for j in range(n):
-        v = y[j]
+            v -= r[j + 1] * idt[j + 1]
         if j >= 1:
             v -= d1[j - 1] * y[j - 1]
         if j >= 2:
             v -= d2[j - 2] * y[j - 2]
         y[j] = v
-    for j in range(n):
-        y[j] /= d0[j]
+    # y = L^-T D^-1 y, and z = S^-1 y as soon as each difference is known
     for j in range(n - 1, -1, -1):
-        v = y[j]
+        v = y[j] * d0[j]
         if j < n - 1:
             v -= d1[j] * y[j + 1]
         if j < n - 2:
             v -= d2[j] * y[j + 2]
         y[j] = v
-    # z = S^-1 y
-    prev = 0.0
-    for j in range(n):
-        z[j] = (y[j] - prev) / dt[j] if free[j] else 0.0
-        prev = y[j]
+        if j < n - 1:
+            z[j + 1] = (y[j + 1] - v) * idt[j + 1] if free[j + 1] else 0.0
+    z[0] = y[0] * idt[0] if free[0] else 0.0
 
 
 @njit(cache=True, nogil=True, parallel=True)
-def _precondition(r, z, dt, d0, d1, d2, free):
+def _precondition(r, z, idt, d0, d1, d2, free):
     """z = M^-1 r, M the block-diagonal part of H (one exact block per CMP)."""
     ncmp, n = r.shape
     for c in prange(ncmp):
         y = np.empty(n)
-        _solve_row(r[c], z[c], dt, d0[c], d1[c], d2[c], free[c], y)
+        _solve_row(r[c], z[c], idt, d0[c], d1[c], d2[c], free[c], y)
 
 
 @njit(cache=True, nogil=True, parallel=True)
@@ -414,6 +411,7 @@ def _rows_bounded(x, g, at_lo, at_hi, lo, hi, slack_lo, slack_hi, dt, pstart, pc
                 v += cw[j] * lat[c] * x[c + 1, j]
             rhs[j] = v
         zeros = np.zeros(n)
+        idt = 1.0 / dt
         keep = np.ones(n, dtype=np.uint8)
         free_row = np.empty(n, dtype=np.uint8)
         d0r, d1r, d2r = np.empty(n), np.empty(max(n - 1, 0)), np.empty(max(n - 2, 0))
@@ -425,7 +423,7 @@ def _rows_bounded(x, g, at_lo, at_hi, lo, hi, slack_lo, slack_hi, dt, pstart, pc
             _factor_row(c, dt, pstart, pcell, palpha, pw, wt, lat, cw, free_row, d0r, d1r, d2r, pen)
             for j in range(n):
                 b[j] = rhs[j] + (pen[j] * (lo if fl[j] else hi) if free_row[j] == 0 else 0.0)
-            _solve_row(b, y, dt, d0r, d1r, d2r, keep, tmp)
+            _solve_row(b, y, idt, d0r, d1r, d2r, keep, tmp)
             for j in range(n):
                 if fl[j]:
                     y[j] = lo
@@ -477,6 +475,7 @@ class _System:
         self.d1 = np.empty((self.shape[0], max(self.shape[1] - 1, 0)))
         self.d2 = np.empty((self.shape[0], max(self.shape[1] - 2, 0)))
         self.all_free = np.ones(self.shape, dtype=np.uint8)
+        self.idt = 1.0 / dt
 
     def apply(self, x, out, free):
         _apply(x, out, self.dt, self.pstart, self.pcell, self.palpha, self.pw, self.wt, self.lat,
@@ -487,7 +486,7 @@ class _System:
                 free, self.d0, self.d1, self.d2)
 
     def precondition(self, r, z, free):
-        _precondition(r, z, self.dt, self.d0, self.d1, self.d2, free)
+        _precondition(r, z, self.idt, self.d0, self.d1, self.d2, free)
 
     def rows_bounded(self, x, g, at_lo, at_hi, lo, hi, slack_lo, slack_hi):
         return _rows_bounded(x, g, at_lo, at_hi, lo, hi, slack_lo, slack_hi, self.dt, self.pstart, self.pcell,
@@ -498,7 +497,7 @@ class _System:
                   self.wt, self.lat, self.cw, free, self.rp)
 
     def cg_update(self, x, r, z, p, q, alpha, free, rz_rows, rr_rows):
-        _cg_update(x, r, z, p, q, alpha, self.dt, self.d0, self.d1, self.d2, free, rz_rows, rr_rows)
+        _cg_update(x, r, z, p, q, alpha, self.idt, self.d0, self.d1, self.d2, free, rz_rows, rr_rows)
 
 
 def _pcg(system, x, g, free, tol, maxiter, work):
