@@ -460,6 +460,71 @@ def _predict(x, dt, pstart, pcell, palpha, b_samples, b_picks):
             b_samples[c, j] = b
 
 
+@njit(cache=True, nogil=True, parallel=True)
+def _residual(g, q, free, r):
+    """r = g - q on the free cells, 0 on the held ones; returns |g on the free cells|^2."""
+    ncmp, n = g.shape
+    rows = np.empty(ncmp)
+    for c in prange(ncmp):
+        s = 0.0
+        for j in range(n):
+            if free[c, j]:
+                r[c, j] = g[c, j] - q[c, j]
+                s += g[c, j] * g[c, j]
+            else:
+                r[c, j] = 0.0
+        rows[c] = s
+    return _ordered_sum(rows)
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def _multiplier_rule(x, mu, at_lo, at_hi, lo, hi, slack_lo, slack_hi, new_lo, new_hi):
+    """The multiplier rule's next active sets (into new_lo, new_hi) and the number of cells that
+    break the KKT conditions: free ones outside a bound, held ones pulled inwards."""
+    ncmp, n = x.shape
+    rows = np.zeros(ncmp, dtype=np.int64)
+    for c in prange(ncmp):
+        k = 0
+        for j in range(n):
+            if at_lo[c, j]:
+                pull = mu[c, j] > 0.0
+                new_lo[c, j] = not pull
+                new_hi[c, j] = False
+            elif at_hi[c, j]:
+                pull = mu[c, j] < 0.0
+                new_hi[c, j] = not pull
+                new_lo[c, j] = False
+            else:
+                below, above = x[c, j] < lo - slack_lo, x[c, j] > hi + slack_hi
+                pull = below or above
+                new_lo[c, j] = below
+                new_hi[c, j] = above
+            if pull:
+                k += 1
+        rows[c] = k
+    total = 0
+    for v in rows:
+        total += v
+    return total
+
+
+@njit(cache=True, nogil=True, parallel=True)
+def _hold(x, at_lo, at_hi, lo, hi, free):
+    """Held cells to their bound, the others clipped into the bounds; free = not held."""
+    ncmp, n = x.shape
+    for c in prange(ncmp):
+        for j in range(n):
+            if at_lo[c, j]:
+                x[c, j] = lo
+                free[c, j] = 0
+            elif at_hi[c, j]:
+                x[c, j] = hi
+                free[c, j] = 0
+            else:
+                x[c, j] = min(max(x[c, j], lo), hi)
+                free[c, j] = 1
+
+
 # ----------------------------------------------------------------------------------------
 
 
@@ -510,11 +575,7 @@ def _pcg(system, x, g, free, tol, maxiter, work):
     ncmp = x.shape[0]
     rows, rz_rows, rr_rows = np.empty(ncmp), np.empty(ncmp), np.empty(ncmp)
     system.apply(x, q, system.all_free)
-    np.subtract(g, q, out=r)
-    r[free == 0] = 0.0
-    gf = np.where(free == 1, g, 0.0)
-    target = tol * max(np.sqrt(_dot(gf, gf)), 1e-300)
-    del gf
+    target = tol * max(np.sqrt(_residual(g, q, free, r)), 1e-300)
     system.precondition(r, z, free)
     rz = _dot(r, z)
     rr = _dot(r, r)
@@ -561,6 +622,7 @@ def _solve_bounded(system, g, x, lo, hi, tol, maxiter):
     free = np.ones(shape, dtype=np.uint8)
     at_lo = np.zeros(shape, dtype=bool)
     at_hi = np.zeros(shape, dtype=bool)
+    plain_lo, plain_hi = np.empty(shape, dtype=bool), np.empty(shape, dtype=bool)
     work = [np.zeros(shape) for _ in range(5)]
     slack_lo, slack_hi = KKT_SLACK * lo, KKT_SLACK * hi
     seen = set()
@@ -573,10 +635,7 @@ def _solve_bounded(system, g, x, lo, hi, tol, maxiter):
         mu = work[3]
         system.apply(x, mu, system.all_free)
         np.subtract(g, mu, out=mu)                       # minus the gradient: > 0 pulls u up
-        inside = ~at_lo & ~at_hi
-        out_lo, out_hi = inside & (x < lo - slack_lo), inside & (x > hi + slack_hi)
-        if (not (out_lo.any() or out_hi.any())
-                and not np.any(at_lo & (mu > 0)) and not np.any(at_hi & (mu < 0))):
+        if _multiplier_rule(x, mu, at_lo, at_hi, lo, hi, slack_lo, slack_hi, plain_lo, plain_hi) == 0:
             converged = reached
             break
         seen.add(_set_key(at_lo, at_hi))
@@ -591,15 +650,11 @@ def _solve_bounded(system, g, x, lo, hi, tol, maxiter):
                 new_lo = None
             last_changes = changes
         if new_lo is None:
-            new_lo = (at_lo & (mu <= 0)) | out_lo
-            new_hi = (at_hi & (mu >= 0)) | out_hi
-            if _set_key(new_lo, new_hi) in seen:
+            if _set_key(plain_lo, plain_hi) in seen:
                 break                                   # the plain rule went round in a circle
+            new_lo, new_hi, plain_lo, plain_hi = plain_lo, plain_hi, at_lo, at_hi   # reuse the buffers
         at_lo, at_hi = new_lo, new_hi
-        np.clip(x, lo, hi, out=x)
-        x[at_lo] = lo
-        x[at_hi] = hi
-        free = (~(at_lo | at_hi)).astype(np.uint8)
+        _hold(x, at_lo, at_hi, lo, hi, free)
     np.clip(x, lo, hi, out=x)
     return x, at_lo, at_hi, total, passes, converged
 
