@@ -474,11 +474,41 @@ class IntervalParams:
         Physical range of interval velocity, m/s (defaults 1400 and 7000).
     dz : float
         Depth step of the ``/depth`` fields, m (default 10).
+
+    The line-wide regularised field (:mod:`velspec.regularised`) uses the fields below. Its
+    three strengths are prior standard deviations of the interval velocity, as fractions of
+    the line's stacking-velocity trend at that t0 (dimensionless): smaller means smoother.
+
+    time_variation : float
+        Within a layer (between two picks of a CMP) the interval velocity changes with t0 as a
+        random walk whose change over 1 s of two-way time has this standard deviation
+        (default 0.05).
+    step_variation : float
+        Standard deviation of the step in interval velocity at a pick's t0, where a reflector
+        lets the velocity jump (default 0.5: steps of tens of percent cost little).
+    lateral_variation : float
+        Along the line, the interval velocity averaged over 1 s of t0 changes as a random walk
+        whose change over 1 km of line has this standard deviation (default 0.2: on a
+        synthetic line with picks 1.5 % uncertain it gave the smallest error against the true
+        field, the picks then fitted to about one sigma; see benchmarks/regularised.py).
+    cmp_spacing : float
+        Distance between neighbouring CMPs, m, used only when no CMP coordinates are given
+        (default 12.5).
+    solver_tolerance : float
+        Relative residual at which each conjugate-gradient solve stops (default 1e-7).
+    solver_iterations : int
+        Most conjugate-gradient iterations per solve (default 3000).
     """
 
     vint_min: float = 1400.0
     vint_max: float = 7000.0
     dz: float = 10.0
+    time_variation: float = 0.05
+    step_variation: float = 0.5
+    lateral_variation: float = 0.2
+    cmp_spacing: float = 12.5
+    solver_tolerance: float = 1e-7
+    solver_iterations: int = 3000
 
     def validate(self) -> None:
         _check(_finite_positive(self.vint_min), "vint_min must be a positive velocity in m/s")
@@ -486,6 +516,15 @@ class IntervalParams:
         _check(self.vint_min < self.vint_max,
                f"vint_min ({self.vint_min:g} m/s) must be below vint_max ({self.vint_max:g} m/s)")
         _check(_finite_positive(self.dz), "dz must be > 0 m")
+        for name in ("time_variation", "step_variation", "lateral_variation"):
+            value = getattr(self, name)
+            _check(_finite_positive(value) and value <= 100,
+                   f"{name} must be a fraction of velocity in (0, 100], got {value!r}")
+        _check(_finite_positive(self.cmp_spacing), "cmp_spacing must be > 0 m")
+        _check(_finite_positive(self.solver_tolerance) and self.solver_tolerance <= 1e-2,
+               "solver_tolerance must be in (0, 0.01]")
+        _check(isinstance(self.solver_iterations, int) and not isinstance(self.solver_iterations, bool)
+               and self.solver_iterations >= 1, "solver_iterations must be an integer >= 1")
 
 
 STAGGERED_COEFFICIENTS = {
