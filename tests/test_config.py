@@ -105,7 +105,7 @@ def test_print_config_still_checks_the_parameters(tmp_path, capsys):
     ("nvel = 100\n", ("'nvel'", "belongs in [scan]")),
     ("[scna]\nnvel = 100\n", ("'scna'", "did you mean 'scan'")),
     ("[read.headers]\ncpd = 21\n", ("[read.headers]", "did you mean 'cdp'")),
-    ("[interval]\nxyzzy = 1\n", ("'xyzzy'", "known: dz, vint_max, vint_min")),
+    ("[interval]\nxyzzy = 1\n", ("'xyzzy'", "known: cmp_spacing, dz,", "vint_max, vint_min)")),
 ])
 def test_unknown_key_is_one_error_line_with_the_nearest_key(tmp_path, capsys, text, words):
     # difflib.get_close_matches (standard library) finds the nearest key

@@ -142,10 +142,18 @@ def test_thin_interval_has_larger_vint_sigma():
         return np.hypot(2 * t1 * v1 * s, 2 * t2 * second(t2) * s) / ((t2 - t1) * 2 * vi)
 
     records = [outcome(1, [t1, 1.1], [v1, second(1.1)], s), outcome(2, [t1, 1.4], [v1, second(1.4)], s)]
-    fields = Line(records, t=t).run()
+    line = Line(records, t=t)
+    fields = line.run()
     inside = [np.searchsorted(t, 1.05), np.searchsorted(t, 1.2)]
-    thin, thick = fields.vint_sigma[0, inside[0]], fields.vint_sigma[1, inside[1]]
+    thin, thick = (float(line.of(c)["vint_sigma"][1]) for c in (1, 2))   # of the interval ending at the pick
     assert np.allclose(fields.vint[0, inside[0]], vi, rtol=1e-4)
     assert np.allclose(fields.vint[1, inside[1]], vi, rtol=1e-4)
     assert thin > 2.5 * thick
     assert np.isclose(thin, expected(1.1), rtol=1e-3) and np.isclose(thick, expected(1.4), rtol=1e-3)
+    # on the samples between the picks the field adds the stated random walk tied down at the
+    # picks (README, "Uncertainty"): a Brownian bridge, sqrt((t - t1)(t2 - t) / (t2 - t1)) per sqrt(s)
+    from velspec.interval import VINT_DRIFT
+    for row, t2, k in ((0, 1.1, inside[0]), (1, 1.4, inside[1])):
+        tk = t[k]
+        bridge = VINT_DRIFT * vi * np.sqrt((tk - t1) * (t2 - tk) / (t2 - t1))
+        assert np.isclose(fields.vint_sigma[row, k], np.hypot((thin, thick)[row], bridge), rtol=1e-3)

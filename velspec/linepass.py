@@ -18,6 +18,7 @@ from .errors import InputError
 from .flags import Flag, clear, used_mask
 from .interval import depth_fields, fields_from_picks
 from .params import RunParams
+from .regularised import depth_from_interval, regularised_dix
 from .result import empty_picks, sort_picks
 
 EDITED_SIGMA = 0.01    # uncertainty given to a person's pick, as a fraction of its velocity
@@ -43,8 +44,11 @@ class LineFields:
         2 poor.
     eta : float32 (ncmp, nt) or None
         Anellipticity (nonhyperbolic scan only).
-    z, depth_t0, depth_vint : depth axis (nz,) m, and two-way time (s) and interval velocity
-        (m/s) at each depth, (ncmp, nz).
+    z, depth_t0, depth_vint, depth_vavg : depth axis (nz,) m, and two-way time (s), interval
+        and average velocity (m/s) at each depth, (ncmp, nz), from the regularised field (from
+        ``vint`` when there is none).
+    regularised_vint, regularised_vrms : float32 (ncmp, nt) or None
+        The line-wide regularised interval field and the stacking velocity it predicts.
     edited_cmps : int
         CMPs whose picks a person's edits changed.
     """
@@ -62,6 +66,9 @@ class LineFields:
     z: np.ndarray
     depth_t0: np.ndarray
     depth_vint: np.ndarray
+    depth_vavg: np.ndarray | None = None
+    regularised_vint: np.ndarray | None = None
+    regularised_vrms: np.ndarray | None = None
     edited_cmps: int = 0
 
 
@@ -229,7 +236,7 @@ def _cmp_fields(t0: np.ndarray, p: np.ndarray, path: np.ndarray, params: RunPara
 
 
 def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndarray, params: RunParams,
-              edits: dict | None = None) -> tuple[np.ndarray, LineFields]:
+              edits: dict | None = None, cmp_x: np.ndarray | None = None) -> tuple[np.ndarray, LineFields]:
     """Fields on every (CMP, t0) from the picks.
 
     Parameters
@@ -245,6 +252,8 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
     params : RunParams
     edits : dict, optional
         A person's picks ``{cmp: (t0, vrms)}``, applied in ``params.pick.edit_mode``.
+    cmp_x : float64 (ncmp,), optional
+        CMP positions along the line, m, for the regularised field's lateral smoothing.
 
     Returns
     -------
@@ -293,11 +302,28 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
         fill(row)
     for row in lateral_outliers(t0, picks, slices, vrms, params):   # judged on the first fields, then redone
         fill(row)
-    z, t_of_z, vint_z = depth_fields(t0, vint, params.interval.dz)
+    reg_vint = reg_vrms = vavg_z = None
+    if params.interval.regularised:
+        use = used_mask(picks["flags"]) & (picks["t0"] > 0) & (picks["t0"] <= t0[-1])
+        row_of = np.concatenate([np.full(s.stop - s.start, r) for r, s in enumerate(slices)]).astype(np.int64)
+        if use.any():
+            x = None
+            if cmp_x is not None and np.all(np.diff(np.asarray(cmp_x, dtype=np.float64)) != 0):
+                x = np.asarray(cmp_x, dtype=np.float64)
+            reg = regularised_dix(t0, row_of[use], picks["t0"][use], picks["vrms"][use], picks["sigma"][use], ncmp,
+                                  params.interval, cmp_x=x)
+            picks["misfit"][use] = reg.misfit
+            reg_vint, reg_vrms = reg.vint, reg.vrms
+    if reg_vint is not None:
+        z, t_of_z, vint_z, vavg_z = depth_from_interval(t0, reg_vint, params.interval.dz)
+        t_of_z, vint_z, vavg_z = (a.astype(np.float32) for a in (t_of_z, vint_z, vavg_z))
+    else:
+        z, t_of_z, vint_z = depth_fields(t0, vint, params.interval.dz)
     return picks, LineFields(vrms=vrms, vint=vint, vint_raw=vint_raw, vint_sigma=vint_sigma,
                              vrms_sigma=vrms_sigma, forced=forced,
                              forced_count=forced_count, no_picks=no_picks, quality=quality, eta=eta, z=z,
-                             depth_t0=t_of_z, depth_vint=vint_z, edited_cmps=changed)
+                             depth_t0=t_of_z, depth_vint=vint_z, depth_vavg=vavg_z, regularised_vint=reg_vint,
+                             regularised_vrms=reg_vrms, edited_cmps=changed)
 
 
 __all__ = ["line_pass", "LineFields", "apply_edits", "lateral_outliers", "cmp_quality", "cmp_slices",

@@ -341,7 +341,9 @@ class ConditionParams:
     mute_intercept, mute_velocity : float
         The linear mute: s (default 0) and m/s (default 1500, the speed of sound in sea water).
         The automatic mute lies no later than the direct wave at ``mute_velocity`` either, so
-        that a reflection recorded as the first arrival is not cut.
+        that a reflection recorded as the first arrival is not cut, and it acts only at the
+        CMPs where a sea floor was found (marine data, whose first arrivals are the direct,
+        head and guided waves); elsewhere the stretch mute alone acts.
     mute_after : float
         The automatic mute lies this long after the fitted first breaks, s (default 0.06: one
         and a half periods of a 25 Hz wavelet, so that the first-arrival wavelets themselves go).
@@ -475,6 +477,10 @@ class IntervalParams:
     dz : float
         Depth step of the ``/depth`` fields, m (default 10).
 
+    regularised : bool
+        Compute the line-wide regularised interval field and take the depth fields from it
+        (default True; False keeps the per-CMP constrained Dix for depth, and is faster).
+
     The line-wide regularised field (:mod:`velspec.regularised`) uses the fields below. Its
     three strengths are prior standard deviations of the interval velocity, as fractions of
     the line's stacking-velocity trend at that t0 (dimensionless): smaller means smoother.
@@ -503,6 +509,7 @@ class IntervalParams:
     vint_min: float = 1400.0
     vint_max: float = 7000.0
     dz: float = 10.0
+    regularised: bool = True
     time_variation: float = 0.05
     step_variation: float = 0.5
     lateral_variation: float = 0.2
@@ -516,6 +523,7 @@ class IntervalParams:
         _check(self.vint_min < self.vint_max,
                f"vint_min ({self.vint_min:g} m/s) must be below vint_max ({self.vint_max:g} m/s)")
         _check(_finite_positive(self.dz), "dz must be > 0 m")
+        _check(isinstance(self.regularised, bool), "regularised must be true or false")
         for name in ("time_variation", "step_variation", "lateral_variation"):
             value = getattr(self, name)
             _check(_finite_positive(value) and value <= 100,

@@ -31,7 +31,7 @@ from .linepass import LineFields, line_pass
 from .params import RunParams, load_toml
 from .pick import pick_panel
 from .pick.guide import GuideFor, guide_source
-from .result import DepthFields, LineAnalysis, Spectra, now_utc
+from .result import DepthFields, LineAnalysis, RegularisedField, Spectra, now_utc
 from .scan import scan_gather, velocity_axis
 from .seafloor import NEAR_TRACES, along_line, water_bottom_time
 from .smoothing import smoothed_panel
@@ -189,7 +189,7 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
         pending = pending[drop:]
         nxt -= drop
 
-    conditioned = _Conditioned(line, params)
+    conditioned = _Conditioned(line, params, None if sea_floor is None else sea_floor[:, 0])
     for start in range(0, len(positions), params.block):
         block = positions[start: start + params.block]
         for k in block:
@@ -209,16 +209,21 @@ class _Conditioned:
     neighbours into a supergather when ``condition.supergather_cmps`` > 1. The few neighbours
     a supergather needs are held; nothing else is."""
 
-    def __init__(self, line: SegyLine, params: RunParams):
+    def __init__(self, line: SegyLine, params: RunParams, sea_floor: np.ndarray | None = None):
         self.line, self.params = line, params
+        # the automatic mute takes out the direct, head and guided waves of marine data; where
+        # no sea floor was found (land), the first arrivals may be reflections: no mute there
+        cp = params.condition
+        self.land = dataclasses.replace(cp, mute="off") if cp.mute == "auto" else cp
+        self.marine = sea_floor if sea_floor is not None else np.zeros(line.ncmp)
         self.half = (params.condition.supergather_cmps - 1) // 2
         self.held: dict[int, tuple[Gather, ConditionReport]] = {}
 
     def _one(self, k: int) -> tuple[Gather, ConditionReport]:
         if k not in self.held:
             g = self.line.read_gather(k)
-            data, offsets, report = condition_gather(g.data, g.offsets, self.line.dt, self.line.t_first,
-                                                     self.params.condition)
+            cp = self.params.condition if np.isfinite(self.marine[k]) else self.land
+            data, offsets, report = condition_gather(g.data, g.offsets, self.line.dt, self.line.t_first, cp)
             self.held[k] = (Gather(cmp=g.cmp, offsets=offsets, data=data, dropped_nan=g.dropped_nan,
                                    dropped_dead=g.dropped_dead + report.dead), report)
         return self.held[k]
@@ -317,7 +322,7 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
     paths = np.stack([o.path for o in analysed]).astype(np.float32)
     # In guide mode the edits already steered the picking; the line pass then only replaces.
     line_edits = edits if params.pick.edit_mode == "replace" else None
-    picks, fields = line_pass(t0, cmp, picks, paths, params, edits=line_edits)
+    picks, fields = line_pass(t0, cmp, picks, paths, params, edits=line_edits, cmp_x=ix.cmp_x[rows])
     kept = [o for o in analysed if o.panel is not None]
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
     spectra = Spectra(cmp=np.array([o.cmp for o in kept], dtype=np.int64), velocity=velocities.astype(np.float64),
@@ -346,7 +351,10 @@ def _assemble(t0, cmp, cmp_x, cmp_y, picks, fields: LineFields, qc, spectra, att
     return LineAnalysis(cmp=cmp, cmp_x=cmp_x, cmp_y=cmp_y, t0=t0, vrms=fields.vrms, vint=fields.vint,
                         vint_sigma=fields.vint_sigma, vrms_sigma=fields.vrms_sigma, picks=picks, qc=qc,
                         spectra=spectra,
-                        depth=DepthFields(z=fields.z, t0=fields.depth_t0, vint=fields.depth_vint),
+                        depth=DepthFields(z=fields.z, t0=fields.depth_t0, vint=fields.depth_vint,
+                                          vavg=fields.depth_vavg),
+                        regularised=(None if fields.regularised_vint is None else
+                                     RegularisedField(vint=fields.regularised_vint, vrms=fields.regularised_vrms)),
                         eta=fields.eta, attrs=attrs, warnings=warnings_out)
 
 
@@ -394,7 +402,7 @@ def revise_result(result: LineAnalysis | str | Path, edits: dict | str | Path | 
         edits = read_functions(edits, need_cmp=True)
     run_params = run_params.with_overrides(pick__edits=edit_file, pick__edit_mode=edit_mode).validate()
     picks, fields = line_pass(result.t0, result.cmp, result.picks, np.asarray(result.qc["path"], np.float32),
-                              run_params, edits=edits or None)
+                              run_params, edits=edits or None, cmp_x=result.cmp_x)
     attrs = {k: v for k, v in result.attrs.items() if k != "format_version"}
     attrs.update(created=now_utc(), parameters=run_params.to_dict(), velspec_version=__version__,
                  revised_from=source, edited_cmps=int(fields.edited_cmps))
