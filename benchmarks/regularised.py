@@ -20,7 +20,7 @@ import resource
 import subprocess
 import sys
 import time
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 import numpy as np
@@ -109,7 +109,7 @@ def main() -> int:
     print(text, end="")
     out_dir = Path(args.out)
     out_dir.mkdir(parents=True, exist_ok=True)
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     (out_dir / f"regularised-{stamp}.md").write_text("# Regularised interval velocity: time and memory\n\n" + text)
     return 0
 

@@ -23,7 +23,7 @@ import os
 import platform
 import tempfile
 import time
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from pathlib import Path
 
 import numpy as np
@@ -72,7 +72,7 @@ def main(argv=None):
                         step_cmp=first + args.ncmp // 2, seed=3)
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
-    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    stamp = datetime.now(UTC).strftime("%Y%m%dT%H%M%SZ")
     with tempfile.TemporaryDirectory() as tmp:
         line = Path(tmp) / "wave.sgy"
         load_before = load()
@@ -128,7 +128,8 @@ def draw(line, truth, out):
                   extent=[x[0], x[-1], t[-1], t[0]])
         ax.set_xlabel("offset (m)")
         ax.set_ylabel("time (s)")
-        ax.set_title(f"Synthetic wave-equation line: {title}\n(gain t^{spec.gain_power:g}, clip at the 99th percentile)",
+        ax.set_title(f"Synthetic wave-equation line: {title}\n"
+                     f"(gain t^{spec.gain_power:g}, clip at the 99th percentile)",
                      fontsize=10)
         fig.tight_layout()
         fig.savefig(out / f"waveline-{name}.png", dpi=90)

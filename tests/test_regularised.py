@@ -147,12 +147,14 @@ def documented_cost(t0, rows, t, v, s, ncmp, params):
         steps.add((c, j - 1 if (ti - top[j]) / dt[j] < 0.5 else j))
     with_picks = sorted(set(rows.tolist()))
     for c in sorted(set(range(ncmp)) - set(with_picks)):   # steps of the nearest CMPs with picks
-        near = [max([r for r in with_picks if r < c], default=None), min([r for r in with_picks if r > c], default=None)]
+        near = [max([r for r in with_picks if r < c], default=None),
+                min([r for r in with_picks if r > c], default=None)]
         steps |= {(c, j) for r, j in list(steps) if r in near}
     for c in range(ncmp):
         for j in range(n - 1):
             up = 0.5 * (uref[j] + uref[j + 1])
-            sd = params.step_variation if (c, j) in steps else params.time_variation * np.sqrt(0.5 * (dt[j] + dt[j + 1]))
+            sd = (params.step_variation if (c, j) in steps
+                  else params.time_variation * np.sqrt(0.5 * (dt[j] + dt[j + 1])))
             row = np.zeros(ncmp * n)
             row[c * n + j + 1], row[c * n + j] = 1.0, -1.0
             eqs.append(row / (2 * up * sd))

@@ -11,8 +11,8 @@ wavelet of tests/conftest.py (its own implementation of Ricker, 1953).
 import numpy as np
 import pytest
 import segyio
-
 from conftest import WELLS, ricker
+
 from velspec.errors import ParameterError
 from velspec.params import COURANT_LIMITS, WaveParams
 from velspec.synth import LineSpec, WaveLineSpec, make_line, make_wave_line, model_shot

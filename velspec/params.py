@@ -594,7 +594,7 @@ class WaveParams:
     boundary_reflection: float = 1e-4
     margin: float = 150.0
 
-    def validate(self) -> "WaveParams":
+    def validate(self) -> WaveParams:
         _check(self.order in STAGGERED_COEFFICIENTS, "order must be 4 or 8 (staggered space differences)")
         _check(_finite_positive(self.points_per_wavelength) and self.points_per_wavelength >= 2.5,
                "points_per_wavelength must be >= 2.5 (below that the differences are far too dispersive)")

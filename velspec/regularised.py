@@ -631,7 +631,7 @@ def _solve_bounded(system, g, x, lo, hi, tol, maxiter):
     seen = set()
     by_rows, last_changes = True, np.inf
     total, passes, converged = 0, 0, False
-    for passes in range(1, MAX_PASSES + 1):
+    for passes in range(1, MAX_PASSES + 1):  # noqa: B007 - the count is reported after the loop
         system.factor(free)
         its, reached = _pcg(system, x, g, free, tol, maxiter, work)
         total += its

@@ -84,8 +84,8 @@ from __future__ import annotations
 
 import math
 
-import numpy as np
 import numba
+import numpy as np
 from numba import njit, prange
 from scipy.signal import resample_poly
 
