@@ -180,6 +180,12 @@ class PickParams:
     smooth_cmps : int
         Spectrum smoothing along the line: the panel picked at a CMP is the triangle-weighted
         mean of the panels of the CMPs within +-smooth_cmps of it (default 2; 0 turns it off).
+    smooth_step : float
+        In that smoothing, a neighbour whose panel is best aligned with the CMP's own by a
+        relative velocity shift s (in windows of 0.2 s of t0) is weighted by exp(-(s /
+        smooth_step)^2) as well (default 0.01): across a fault or a change of facies, where the
+        events step in velocity, the neighbours drop out instead of smearing the step; 0 turns
+        it off (triangle weights alone).
     lateral_cmps : int
         Half width, in CMPs, of the running median along the line that the line pass compares
         each pick with (default 5; 0 turns the outlier rejection off).
@@ -224,6 +230,7 @@ class PickParams:
     doubtful_coherence: float = 0.25
     doubtful_sigma: float = 0.03
     smooth_cmps: int = 2
+    smooth_step: float = 0.01
     lateral_cmps: int = 5
     outlier_tolerance: float = 0.04
     outlier_sigmas: float = 3.0
@@ -265,6 +272,7 @@ class PickParams:
         for name in ("smooth_cmps", "lateral_cmps"):
             value = getattr(self, name)
             _check(isinstance(value, int) and 0 <= value <= 1000, f"{name} must be an integer in 0..1000")
+        _check(_finite_nonneg(self.smooth_step) and self.smooth_step < 1, "smooth_step must be in [0, 1)")
         _check(_finite_positive(self.outlier_tolerance), "outlier_tolerance must be > 0")
         _check(_finite_nonneg(self.outlier_sigmas), "outlier_sigmas must be >= 0")
         _check(isinstance(self.edits, str), "edits must be the path of a CSV file, or empty")

@@ -173,7 +173,8 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
         while nxt < len(pending) and pending[nxt].position + half <= upto:
             item = pending[nxt]
             if item.panel is not None:
-                panel = smoothed_panel([s.panel for s in pending], [s.position for s in pending], nxt, half)
+                panel = smoothed_panel([s.panel for s in pending], [s.position for s in pending], nxt, half,
+                                       velocities=velocities, step_scale=params.pick.smooth_step, dt=line.dt)
                 pick_one(item.outcome, item.gather, panel, item.best_eta, times, params, velocities,
                          guide_for(item.outcome.cmp),
                          None if sea_floor is None else tuple(map(float, sea_floor[item.position])))
