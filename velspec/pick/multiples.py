@@ -222,6 +222,11 @@ def _mark_predicted(t, v, c, flags, explained, wb, vw, tol_t, tol_v, strong, vin
                                   t_first, dt)
         if not flags[i] & slow:
             continue
+        if explained[i]:
+            # slower than the trend and near a predicted multiple (within twice the tolerances):
+            # the multiple, not a primary of an inversion
+            flags[i] |= bit
+            continue
         # slower than the trend and no multiple explains it: a primary of an inversion when the
         # interval velocity it implies with the primary above is physical
         lo = max(vint_lo, vw) if wb > 0 and t[i] > wb else vint_lo

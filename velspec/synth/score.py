@@ -112,13 +112,19 @@ def field_errors(result, truth, vstack: np.ndarray, tmin: float = 0.3, min_refle
 
 
 def sea_floor_errors(result, truth) -> np.ndarray | None:
-    """|found - true| water-bottom two-way time per CMP, s (NaN where none was found), or None
-    when the result has no ``/qc/water_bottom``. The true time is the first layer's 2 h / v."""
+    """|found - true| water-bottom two-way time per CMP, s (NaN where it is wrong: none found at
+    sea, or one found on land), or None when the result has no ``/qc/water_bottom``.
+
+    The model is marine when its first layer has the velocity of sea water (1400-1600 m/s,
+    common practice, no source); the true time is then that layer's 2 h / v. On land the right
+    answer is none: 0 where none was found."""
     if "water_bottom" not in result.qc:
         return None
     rows = [int(np.flatnonzero(truth.cmp == c)[0]) for c in result.cmp]
+    found = np.asarray(result.qc["water_bottom"], dtype=np.float64)
+    marine = (truth.velocity[rows, 0] >= 1400.0) & (truth.velocity[rows, 0] <= 1600.0)
     true = 2.0 * truth.thickness[rows, 0] / truth.velocity[rows, 0]
-    return np.abs(np.asarray(result.qc["water_bottom"], dtype=np.float64) - true)
+    return np.where(marine, np.abs(found - true), np.where(np.isfinite(found), np.nan, 0.0))
 
 
 def score_line(result, truth, stretch_limit: float, tmin: float = 0.3, block: float = 0.150,
