@@ -169,7 +169,9 @@ def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrm
                               for ut in used_t[lo: row + k + 1]])
         supported[row - lo] = False    # the CMP itself is no witness
         enough = supported.sum(axis=0) >= MIN_NEIGHBOURS
-        ref = np.nanmedian(np.where(supported, values, np.nan), axis=0) if enough.any() else np.zeros(p.size)
+        ref = np.zeros(p.size)
+        if enough.any():
+            ref[enough] = np.nanmedian(np.where(supported, values, np.nan)[:, enough], axis=0)
         dev = np.abs(p["vrms"] - ref)
         bad = (candidate & enough & (dev > pp.outlier_tolerance * ref) & (dev > pp.outlier_sigmas * p["sigma"]))
         if bad.any():

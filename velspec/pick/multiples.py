@@ -256,7 +256,9 @@ def _mark_predicted(t, v, c, flags, explained, wb, vw, tol_t, tol_v, strong, vin
                 continue
             dt_m = t[i] - t[m]
             dv_m = v[i] - v[m]
-            if abs(dt_m) <= reach and dt_m * dv_m >= 0 and abs(dv_m) <= 2 * tol_v * v[m]:
+            # along the smear's diagonal; or, much weaker, right beside the multiple: its side lobe
+            if ((abs(dt_m) <= reach and dt_m * dv_m >= 0 and abs(dv_m) <= 2 * tol_v * v[m])
+                    or (abs(dt_m) <= 0.5 * reach and c[i] < 0.5 * c[m] and abs(dv_m) <= 4 * tol_v * v[m])):
                 flags[i] = (flags[i] | bit) & ~inversion
                 break
 
