@@ -118,12 +118,13 @@ def pick_one(outcome: CmpOutcome, gather: Gather, panel: np.ndarray, best_eta: n
     outcome.picks, outcome.path = picks, path
 
 
-def sea_floor_pass(line: SegyLine, params: RunParams, most: int = 2000) -> tuple[np.ndarray, np.ndarray]:
+def sea_floor_pass(line: SegyLine, params: RunParams, most: int = 2000,
+                   every: int = 4) -> tuple[np.ndarray, np.ndarray]:
     """Two-way time (s) and water velocity (m/s) of the sea floor at every CMP of the line (NaN
     where none, as on land).
 
     ``params.pick.water_bottom`` and ``water_velocity`` when the time is given; otherwise found
-    on the nearest traces of at most ``most`` CMPs evenly spread along the line
+    on the nearest traces of every ``every``-th CMP (at most ``most`` of them) along the line
     (:func:`velspec.seafloor.water_bottom_time`), made consistent along the line
     (:func:`velspec.seafloor.along_line`) and interpolated between them. Only a dozen traces of
     those CMPs are read.
@@ -131,11 +132,12 @@ def sea_floor_pass(line: SegyLine, params: RunParams, most: int = 2000) -> tuple
     pp = params.pick
     if pp.water_bottom > 0:
         return np.full(line.ncmp, pp.water_bottom), np.full(line.ncmp, pp.water_velocity)
-    stride = max(1, int(np.ceil(line.ncmp / most)))
+    stride = max(every if line.ncmp >= 10 * every else 1, int(np.ceil(line.ncmp / most)))
     sampled = np.unique(np.append(np.arange(0, line.ncmp, stride), line.ncmp - 1))
     found = np.array([water_bottom_time(g.data, g.offsets, line.dt, line.t_first, pp.water_velocity)[:2]
                       for g in (line.read_gather(int(k), nearest=NEAR_TRACES) for k in sampled)]).reshape(-1, 2)
-    times, velocities = along_line(found[:, 0], velocities=found[:, 1])
+    # the median over +-5 found CMPs, about 20 CMPs of line either side when every 4th is looked at
+    times, velocities = along_line(found[:, 0], velocities=found[:, 1], half=max(5 * 4 // stride, 2))
     velocities = np.where(np.isfinite(velocities), velocities, pp.water_velocity)
     velocities[~np.isfinite(times)] = np.nan
     if sampled.size == line.ncmp:

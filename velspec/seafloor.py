@@ -93,7 +93,13 @@ def water_bottom_time(data: np.ndarray, offsets: np.ndarray, dt: float, t_first:
     live = np.maximum(inside.sum(axis=0), 1)
     for m, v in enumerate(vels):
         times = np.sqrt(t0[None, :] ** 2 + (x[:, None] / v) ** 2)
-        a = np.stack([np.interp(times[i], t, data[i], left=0.0, right=0.0) for i in range(ntr)]) * inside
+        # every trace at once: fractional sample positions into the flattened traces
+        pos = np.clip((times - t_first) / dt, 0.0, ns - 1.000001)
+        k0 = pos.astype(np.int64)
+        frac = pos - k0
+        flat = data.ravel()
+        base = (np.arange(ntr) * ns)[:, None]
+        a = (flat[base + k0] * (1.0 - frac) + flat[base + k0 + 1] * frac) * (inside & (times <= t[-1]))
         stack = a.sum(axis=0)
         num = np.convolve(stack * stack, box, mode="same")
         den = np.convolve(live * (a * a).sum(axis=0), box, mode="same")

@@ -82,9 +82,9 @@ def panel_shift(a: np.ndarray, b: np.ndarray, velocities: np.ndarray, edges: np.
     """Relative velocity shift that best aligns panel ``b`` with panel ``a`` in each t0 window.
 
     In each window the two velocity profiles (the mean coherence over the window's t0 samples,
-    its mean removed) are cross-correlated over shifts of the log-velocity axis up to
-    :data:`MAX_SHIFT`; the best shift is refined by a parabola. Positive: ``b``'s events are
-    faster.
+    its mean removed) are cross-correlated over shifts of whole velocity samples up to
+    :data:`MAX_SHIFT` of the velocity at ``a``'s peak; the best shift is refined by a parabola and
+    divided by that velocity. Positive: ``b``'s events are faster.
 
     Parameters
     ----------
@@ -99,27 +99,60 @@ def panel_shift(a: np.ndarray, b: np.ndarray, velocities: np.ndarray, edges: np.
     -------
     ndarray (nwindow,)
     """
-    lv = np.log(np.asarray(velocities, dtype=np.float64))
-    step = float(np.median(np.diff(lv)))
-    grid = np.arange(lv[0], lv[-1] + 0.5 * step, step)   # an even log-velocity axis
-    reach = max(int(np.ceil(MAX_SHIFT / step)), 1)
-    out = np.zeros(edges.size - 1)
-    for w in range(edges.size - 1):
-        pa = np.interp(grid, lv, a[:, edges[w]: edges[w + 1]].mean(axis=1))
-        pb = np.interp(grid, lv, b[:, edges[w]: edges[w + 1]].mean(axis=1))
-        pa, pb = pa - pa.mean(), pb - pb.mean()
-        if not (np.any(pa) and np.any(pb)):
+    edges = np.ascontiguousarray(edges, dtype=np.int64)
+    return _shifts(_profiles(np.ascontiguousarray(a, dtype=np.float32), edges),
+                   _profiles(np.ascontiguousarray(b, dtype=np.float32), edges),
+                   np.ascontiguousarray(velocities, dtype=np.float64), MAX_SHIFT)
+
+
+@njit(cache=True, nogil=True)
+def _profiles(panel, edges):
+    # mean coherence of each velocity over each window: (nwindow, nv), reading the panel in order
+    nv = panel.shape[0]
+    nw = edges.size - 1
+    out = np.zeros((nw, nv))
+    for r in range(nv):
+        row = panel[r]
+        for w in range(nw):
+            acc = 0.0
+            for j in range(edges[w], edges[w + 1]):
+                acc += row[j]
+            out[w, r] = acc / max(edges[w + 1] - edges[w], 1)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _shifts(pa, pb, velocities, max_shift):
+    nw, nv = pa.shape
+    out = np.zeros(nw)
+    for w in range(nw):
+        ma = pa[w].mean()
+        mb = pb[w].mean()
+        peak = int(np.argmax(pa[w]))
+        lo = max(peak - 1, 0)
+        hi = min(peak + 1, nv - 1)
+        dv = (velocities[hi] - velocities[lo]) / max(hi - lo, 1)
+        if dv <= 0:
             continue
-        cc = np.array([np.dot(pa[max(0, -s): pa.size - max(0, s)], pb[max(0, s): pb.size - max(0, -s)])
-                       for s in range(-reach, reach + 1)])
-        k = int(np.argmax(cc))
-        shift = float(k - reach)
-        if 0 < k < cc.size - 1:
-            c0, c1, c2 = cc[k - 1], cc[k], cc[k + 1]
-            curv = c0 - 2 * c1 + c2
+        reach = max(int(np.ceil(max_shift * velocities[peak] / dv)), 1)
+        best, kbest = -np.inf, 0
+        cc = np.empty(2 * reach + 1)
+        for k in range(-reach, reach + 1):
+            acc = 0.0
+            for r in range(max(0, -k), min(nv, nv - k)):
+                acc += (pa[w, r] - ma) * (pb[w, r + k] - mb)
+            cc[k + reach] = acc
+            if acc > best:
+                best, kbest = acc, k
+        if best <= 0:
+            continue
+        shift = float(kbest)
+        i = kbest + reach
+        if 0 < i < cc.size - 1:
+            curv = cc[i - 1] - 2.0 * cc[i] + cc[i + 1]
             if curv < 0:
-                shift += float(np.clip(0.5 * (c0 - c2) / curv, -0.5, 0.5))
-        out[w] = shift * step
+                shift += min(max(0.5 * (cc[i - 1] - cc[i + 1]) / curv, -0.5), 0.5)
+        out[w] = shift * dv / velocities[peak]
     return out
 
 
