@@ -119,7 +119,7 @@ def pick_one(outcome: CmpOutcome, gather: Gather, panel: np.ndarray, best_eta: n
 
 
 def sea_floor_pass(line: SegyLine, params: RunParams, most: int = 2000,
-                   every: int = 4) -> tuple[np.ndarray, np.ndarray]:
+                   every: int = 2) -> tuple[np.ndarray, np.ndarray]:
     """Two-way time (s) and water velocity (m/s) of the sea floor at every CMP of the line (NaN
     where none, as on land).
 
@@ -136,8 +136,8 @@ def sea_floor_pass(line: SegyLine, params: RunParams, most: int = 2000,
     sampled = np.unique(np.append(np.arange(0, line.ncmp, stride), line.ncmp - 1))
     found = np.array([water_bottom_time(g.data, g.offsets, line.dt, line.t_first, pp.water_velocity)[:2]
                       for g in (line.read_gather(int(k), nearest=NEAR_TRACES) for k in sampled)]).reshape(-1, 2)
-    # the median over +-5 found CMPs, about 20 CMPs of line either side when every 4th is looked at
-    times, velocities = along_line(found[:, 0], velocities=found[:, 1], half=max(5 * 4 // stride, 2))
+    # the median over about +-5 CMPs of line (+-2 or 3 looked at when every other is)
+    times, velocities = along_line(found[:, 0], velocities=found[:, 1], half=max(5 // stride, 2))
     velocities = np.where(np.isfinite(velocities), velocities, pp.water_velocity)
     velocities[~np.isfinite(times)] = np.nan
     if sampled.size == line.ncmp:
