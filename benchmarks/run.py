@@ -55,9 +55,10 @@ from numba import njit, prange  # noqa: E402
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import bounds  # noqa: E402
-from numpy_reference import semblance_reference  # noqa: E402
+
 
 from velspec.scan import kernels, scan_gather, velocity_axis  # noqa: E402
+from velspec.scan.reference import semblance_reference  # noqa: E402
 
 DT = 0.004
 SCAN = dict(vmin=1400.0, vmax=6000.0, window=0.040, stretch_limit=0.5)  # RunParams defaults
