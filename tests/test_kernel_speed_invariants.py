@@ -100,17 +100,16 @@ CASES = {
 @pytest.mark.parametrize("name", sorted(CASES))
 def test_same_bits_as_the_plain_loop(name, rng):
     args = kernel_args(rng=rng, **CASES[name])
-    plain = plain_semblance(*args)
-    assert np.array_equal(kernels.semblance(*args), plain)
-    assert np.array_equal(kernels.semblance_panel(*args, False), plain)   # the scalar path
+    assert np.array_equal(kernels.semblance(*args), plain_semblance(*args))
 
 
 # -- every block width and permute this machine can run -----------------------------------------
 
 def runnable_paths():
-    """(lanes, permute) pairs whose instructions the CPU numba compiles for has."""
+    """(lanes, permute) pairs whose instructions the CPU numba compiles for has; (1, "scalar")
+    is the sample-by-sample path of the drivers."""
     t = vector_target()
-    paths = [(4, "generic"), (8, "generic"), (16, "generic")]
+    paths = [(1, "scalar"), (4, "generic"), (8, "generic"), (16, "generic")]
     if t.arch == "x86_64":
         if t.lanes >= 8 or t.permute == "avx":
             paths.append((4, "avx"))
@@ -125,10 +124,13 @@ def runnable_paths():
 
 def stack_everything(lanes, permute):
     """njit (data, q_unit, trials, law, tau2, mute_c, tau_first) -> stack, energy per trial,
-    through the block path of the given width and permute."""
-    hb, ht = kernels.make_block(True, False, lanes, permute), kernels.make_block(True, True, lanes, permute)
-    pb, pt = kernels.make_block(False, False, lanes, permute), kernels.make_block(False, True, lanes, permute)
-    stack_h, stack_p, _, _ = kernels.make_stackers(hb, ht, pb, pt, lanes)
+    through the block path of the given width and permute, or sample by sample ("scalar")."""
+    if permute == "scalar":
+        stack_h, stack_p = kernels.stack_hyperbola_scalar, kernels.stack_positions_scalar
+    else:
+        hb, ht = kernels.make_block(True, False, lanes, permute), kernels.make_block(True, True, lanes, permute)
+        pb, pt = kernels.make_block(False, False, lanes, permute), kernels.make_block(False, True, lanes, permute)
+        stack_h, stack_p, _, _ = kernels.make_stackers(hb, ht, pb, pt, lanes)
 
     @njit(cache=False)
     def run(data, q_unit, trials, law, tau2, mute_c, tau_first):

@@ -215,8 +215,8 @@ def make_stackers(full_hyperbola, tail_hyperbola, full_positions, tail_positions
     - ``stack_hyperbola(trace, tau2, q, tau_first, stack, energy, j0, j1)``;
     - ``stack_positions(trace, pos, stack, energy, j0, j1)``;
 
-    and the same two sample by sample (:func:`accumulate`), which every block path must match
-    bit for bit.
+    and the same two sample by sample (:func:`accumulate`, the fallback of the block drivers):
+    the scalar path every block path must match bit for bit.
     """
 
     @njit(cache=True, nogil=True, inline="always")
@@ -313,12 +313,8 @@ def coprime_stride(n):
 
 
 @njit(cache=True, parallel=True, nogil=True, error_model="numpy")
-def semblance_panel(data, q_unit, trials, law, tau2, mute_c, tau_first, half, vector):
-    """:func:`semblance`, with the block path (``vector`` True) or sample by sample (False).
-
-    Both give the same bits; the sample-by-sample path is the reference every vector width is
-    checked against.
-    """
+def semblance_panel(data, q_unit, trials, law, tau2, mute_c, tau_first, half):
+    """The numba kernel of :func:`semblance` (same arguments)."""
     ntr, ns = data.shape
     nt = tau2.shape[0]
     ntrial = trials.shape[0]
@@ -342,16 +338,10 @@ def semblance_panel(data, q_unit, trials, law, tau2, mute_c, tau_first, half, ve
             q = q_unit[i] * s2
             if law == HYPERBOLIC:
                 j0, j1 = hyperbolic_span(tau2, q, mute_c, tau_first, last)
-                if vector:
-                    stack_hyperbola(data[i], tau2, q, tau_first, stack, energy, j0, j1)
-                else:
-                    stack_hyperbola_scalar(data[i], tau2, q, tau_first, stack, energy, j0, j1)
+                stack_hyperbola(data[i], tau2, q, tau_first, stack, energy, j0, j1)
             else:
                 j0, j1 = positions(law, tau2, q, eta, mute_c, tau_first, last, pos)
-                if vector:
-                    stack_positions(data[i], pos, stack, energy, j0, j1)
-                else:
-                    stack_positions_scalar(data[i], pos, stack, energy, j0, j1)
+                stack_positions(data[i], pos, stack, energy, j0, j1)
             if j1 > j0:
                 live[j0] += 1
                 live[j1] -= 1
@@ -394,7 +384,7 @@ def semblance(data, q_unit, trials, law, tau2, mute_c, tau_first, half):
     Neidell, N. S., and Taner, M. T., 1971, Semblance and other coherency measures for
     multichannel data: Geophysics 36, 482-497.
     """
-    return semblance_panel(data, q_unit, trials, law, tau2, mute_c, tau_first, half, True)
+    return semblance_panel(data, q_unit, trials, law, tau2, mute_c, tau_first, half)
 
 
 @njit(cache=True, parallel=True, nogil=True)
