@@ -127,8 +127,9 @@ class BlockCode:
         f = b.fsub(p, b.sitofp(k, v.vf))
         kb = b.extract_element(k, I32(0))
         idx = b.sub(k, v.splat(kb))
-        # Unsigned compare: also rejects idx < 0 (a law whose position falls with t0).
-        ok = v.all_of(b.icmp_unsigned("<", idx, v.int_const(self.lanes)))
+        # 0 <= idx < W (W a power of two) is "no bit above log2 W", which also rejects idx < 0
+        # (a law whose position falls with t0): one test of the whole register.
+        ok = v.no_bits(idx, ~(self.lanes - 1) & 0xFFFFFFFF)
         if not self.masked:
             ok = b.and_(ok, b.icmp_signed("<=", kb, b.sub(self.ns, I32(self.lanes + 1))))
         return k, f, kb, idx, ok

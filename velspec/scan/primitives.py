@@ -256,6 +256,26 @@ class VectorIR:
         bits = ir.IntType(self.lanes)
         return self.b.icmp_unsigned("==", self.b.bitcast(mask, bits), ir.Constant(bits, (1 << self.lanes) - 1))
 
+    def no_bits(self, v, bits):
+        """True (i1) when no lane of the int32 vector ``v`` has any of ``bits`` set.
+
+        One test of the whole register where the target has it (vptest on AVX and AVX2, a
+        compare into a mask register on AVX-512, an OR reduction elsewhere) rather than a
+        compare per lane, a movemask and a test.
+        """
+        b = self.b
+        kind = self.permute_kind
+        if kind in ("avx2", "avx"):
+            q = ir.VectorType(I64, self.lanes // 2)
+            name = "llvm.x86.avx.ptestz.256" if self.lanes == 8 else "llvm.x86.sse41.ptestz"
+            z = b.call(self._fn(name, I32, [q, q]), [b.bitcast(v, q), b.bitcast(self.int_const(bits), q)])
+            return b.icmp_unsigned("!=", z, I32(0))
+        masked = b.and_(v, self.int_const(bits))
+        if kind == "avx512":   # LLVM makes this one compare into a mask register and a test
+            return self.all_of(b.icmp_unsigned("==", masked, self.int_const(0)))
+        fn = self._fn(f"llvm.vector.reduce.or.v{self.lanes}i32", I32, [self.vi])
+        return b.icmp_unsigned("==", b.call(fn, [masked]), I32(0))
+
     def _ptr(self, base, offset):
         return self.b.bitcast(self.b.gep(base, [offset]), self.vf.as_pointer())
 
