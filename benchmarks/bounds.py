@@ -1,8 +1,9 @@
 """What bounds the semblance kernel: the same loop with parts of the block left out.
 
-Each variant runs the kernel's own per-trace driver (``kernels.make_stackers``: live spans, two
-blocks per turn, masked tails) over the standard gather on one thread, with a different full
-block, built from the kernel's own code-generation stages (``kernels.BlockCode``):
+Each variant runs the kernel's own per-trace driver (``kernels.make_stackers``: live spans,
+two-group blocks, masked tails) over the standard gather on one thread, with different full
+blocks (two-group and one-group), built from the kernel's own code-generation stages
+(``kernels.BlockCode``); the masked tails stay the kernel's:
 
 - ``kernel``: the block of velspec.scan.kernels as it is;
 - ``gathers instead of permutes``: the interpolation end points fetched with two W-lane
@@ -52,8 +53,9 @@ def _gather(code, k):
     return b.call(fn, [b.inttoptr(addr, vp), I32(4), allm, v.float_const(0.0)])
 
 
-def variant_block(kind: str):
-    """A full block intrinsic with the kernel's signature and parts of its work left out."""
+def variant_block(kind: str, groups: int, whole_delay: bool):
+    """A full block intrinsic with the kernel's signature and parts of its work left out
+    (``whole_delay`` as in ``kernels.make_block``)."""
 
     def typer(typingctx, trace, src, stack, energy, j, n, q, tau_first):
         sig = K.block_typer(trace, src, stack, energy, j, n, q, tau_first)
@@ -64,36 +66,48 @@ def variant_block(kind: str):
             code = K.BlockCode(context, builder, signature, args, K.LANES, K.TARGET.permute, masked=False)
             b, v = code.b, code.v
             if kind == "driver only":
-                v.store(b.fadd(v.load(code.stack, code.j), v.float_const(1.0)), code.stack, code.j)
+                for g in range(groups):
+                    j = code.at(g)
+                    v.store(b.fadd(v.load(code.stack, j), v.float_const(1.0)), code.stack, j)
                 return ir.Constant(I1, 1)
-            x = code.source()
-            if kind == "no sqrt":
-                p = b.fmul(b.fadd(x, v.splat(code.q)), v.float_const(1e-4))
-            else:
-                p = code.hyperbola(x)
-            if kind == "sqrt and position only":
-                v.store(b.fadd(v.load(code.stack, code.j), p), code.stack, code.j)
-                return ir.Constant(I1, 1)
-            k, f, kb, idx, ok = code.split(p)
-            with b.if_then(ok, likely=True):
-                if kind == "gathers instead of permutes":
-                    a0 = _gather(code, k)
-                    a1 = _gather(code, b.add(k, v.int_const(1)))
-                elif kind == "table loads, no permutes":
-                    a0, a1 = code.tables(kb)
+            ps = []
+            for g in range(groups):
+                x = code.source(g)
+                if kind == "no sqrt":
+                    ps.append(b.fmul(b.fadd(x, v.splat(code.q)), v.float_const(1e-4)))
                 else:
-                    a0, a1 = code.end_points(kb, idx)
-                code.accumulate(f, a0, a1)
+                    ps.append(code.from_zero(x) if whole_delay else code.hyperbola(x))
+            if kind == "sqrt and position only":
+                for g, p in enumerate(ps):
+                    j = code.at(g)
+                    v.store(b.fadd(v.load(code.stack, j), p), code.stack, j)
+                return ir.Constant(I1, 1)
+            parts = [code.indices(p) for p in ps]
+            if whole_delay:
+                shift = b.fptosi(code.tau_first, I32)
+                parts = [(k, f, b.sub(kb, shift), idx) for k, f, kb, idx in parts]
+            ok = code.check([kb for _, _, kb, _ in parts], [idx for _, _, _, idx in parts], rising=True)
+            with b.if_then(ok, likely=True):
+                for g, (k, f, kb, idx) in enumerate(parts):
+                    if kind == "gathers instead of permutes":
+                        a0 = _gather(code, k)
+                        a1 = _gather(code, b.add(k, v.int_const(1)))
+                    elif kind == "table loads, no permutes":
+                        a0, a1 = code.tables(kb)
+                    else:
+                        a0, a1 = code.end_points(kb, idx)
+                    code.accumulate(f, a0, a1, g)
             return ok
 
         return sig, codegen
 
-    typer.__name__ = typer.__qualname__ = "bound_" + "".join(c if c.isalnum() else "_" for c in kind)
+    typer.__name__ = typer.__qualname__ = (f"bound_{groups}_{int(whole_delay)}_"
+                                           + "".join(c if c.isalnum() else "_" for c in kind))
     return intrinsic(typer)
 
 
-def _driver(block):
-    stack_hyperbola = K.make_stackers(block, K.hyperbola_tail, K.positions_block, K.positions_tail)[0]
+def _driver(blocks):
+    stack_hyperbola = K.make_stackers(blocks)[0]
 
     @njit(nogil=True)
     def drive(data, q_unit, trials, tau2, mute_c, tau_first):
@@ -144,7 +158,10 @@ def measure(clock_ghz: float, seconds: float = 5.0) -> list[dict]:
     nblocks = int(_blocks(q_unit, trials, tau2, mute_c, tau_first, data.shape[1], K.LANES))
     drivers = {}
     for kind in VARIANTS:
-        drivers[kind] = _driver(K.hyperbola_block if kind == "kernel" else variant_block(kind))
+        blocks = K.BLOCKS if kind == "kernel" else K.BLOCKS._replace(
+            pair_hyperbola=variant_block(kind, 2, False), full_hyperbola=variant_block(kind, 1, False),
+            pair_whole_delay=variant_block(kind, 2, True), full_whole_delay=variant_block(kind, 1, True))
+        drivers[kind] = _driver(blocks)
         drivers[kind](*args)                       # compile
     best = {kind: 1e9 for kind in VARIANTS}
     start = time.perf_counter()

@@ -87,6 +87,7 @@ CASES = {
     "shorter than a block": dict(ntr=7, ns=13, nv=5),
     "span ends near the trace end": dict(ntr=24, ns=37, nv=9, stretch=8.0),
     "delay": dict(ntr=24, ns=600, nv=11, t_first=0.2),
+    "delay of a fraction of a sample": dict(ntr=24, ns=600, nv=11, t_first=0.0513),
     "negative delay": dict(ntr=24, ns=600, nv=11, t_first=-0.1),
     "zero offsets": dict(ntr=12, ns=400, nv=4, offsets=np.zeros(12)),
     "near-zero offsets": dict(ntr=12, ns=3000, nv=4, offsets=np.linspace(0.0, 30.0, 12)),
@@ -128,9 +129,7 @@ def stack_everything(lanes, permute):
     if permute == "scalar":
         stack_h, stack_p = kernels.stack_hyperbola_scalar, kernels.stack_positions_scalar
     else:
-        hb, ht = kernels.make_block(True, False, lanes, permute), kernels.make_block(True, True, lanes, permute)
-        pb, pt = kernels.make_block(False, False, lanes, permute), kernels.make_block(False, True, lanes, permute)
-        stack_h, stack_p, _, _ = kernels.make_stackers(hb, ht, pb, pt, lanes)
+        stack_h, stack_p, _, _ = kernels.make_stackers(kernels.make_blocks(lanes, permute))
 
     @njit(cache=False)
     def run(data, q_unit, trials, law, tau2, mute_c, tau_first):
@@ -177,8 +176,8 @@ def stack_plainly(data, q_unit, trials, law, tau2, mute_c, tau_first):
 @pytest.mark.parametrize("lanes,permute", runnable_paths())
 def test_every_runnable_block_path_gives_the_plain_bits(lanes, permute, rng):
     run = stack_everything(lanes, permute)
-    for name in ("standard", "shorter than a block", "span ends near the trace end", "negative delay",
-                 "near-zero offsets", "nonhyperbolic, delay"):
+    for name in ("standard", "shorter than a block", "span ends near the trace end", "delay", "negative delay",
+                 "delay of a fraction of a sample", "near-zero offsets", "nonhyperbolic, delay"):
         args = kernel_args(rng=rng, **CASES[name])[:7]
         got_s, got_e = run(*args)
         ref_s, ref_e = stack_plainly(*args)

@@ -39,6 +39,8 @@ vectoriser turns the table look-ups into gathers.
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 from numba import njit, prange, types
 from numba.core import cgutils
@@ -70,7 +72,10 @@ def block_typer(trace, src, stack, energy, j, n, q, tau_first):
 
 
 class BlockCode:
-    """Code generation of one block ``block(trace, src, stack, energy, j, n, q, tau_first)``.
+    """Code generation of a block ``block(trace, src, stack, energy, j, n, q, tau_first)``.
+
+    A block is ``groups`` registers of W consecutive t0 samples (group g covers j + g W ..
+    j + g W + W - 1) sharing one test of whether the fast path applies.
 
     The stages of :func:`make_block`, public so that benchmarks/bounds.py can time the block
     with parts left out. Create it inside an intrinsic's ``codegen``.
@@ -100,9 +105,14 @@ class BlockCode:
         self.tau_first = context.cast(builder, args[7], at[7], types.float32)
         self.live = self.v.lanes_below(self.n) if masked else None
 
-    def source(self):
-        """src[j:j + W]; in a tail the dead lanes copy lane 0, so they pass every test."""
-        x = self.v.load(self.src, self.j, self.live)
+    def at(self, group):
+        """Output index of the first lane of ``group``, int64."""
+        return self.j if group == 0 else self.b.add(self.j, I64(group * self.lanes))
+
+    def source(self, group=0):
+        """src[j + g W:j + g W + W]; in a tail the dead lanes copy lane 0, so they pass every
+        test."""
+        x = self.v.load(self.src, self.at(group), self.live)
         if self.masked:
             x = self.b.select(self.live, x, self.v.splat(self.b.extract_element(x, I32(0))))
         return x
@@ -110,7 +120,12 @@ class BlockCode:
     def hyperbola(self, x):
         """Positions sqrt(tau^2 + q) - tau_first from x = tau^2, as moveout.positions does."""
         v = self.v
-        return self.b.fsub(v.sqrt(self.b.fadd(x, v.splat(self.q))), v.splat(self.tau_first))
+        return self.b.fsub(self.from_zero(x), v.splat(self.tau_first))
+
+    def from_zero(self, x):
+        """sqrt(tau^2 + q): the hyperbola's position counted from time zero, in samples."""
+        v = self.v
+        return v.sqrt(self.b.fadd(x, v.splat(self.q)))
 
     def split(self, p):
         """(k, f, kb, idx, ok): k = min(trunc p, ns - 2), f = p - k, kb = k[0], idx = k - kb.
@@ -118,6 +133,11 @@ class BlockCode:
         ``ok`` (i1) says the block can be done with two loads and permutes: every idx in
         0..W-1 and, unmasked, both loads inside the trace (a tail's loads are masked).
         """
+        k, f, kb, idx = self.indices(p)
+        return k, f, kb, idx, self.check([kb], [idx])
+
+    def indices(self, p):
+        """(k, f, kb, idx) of :meth:`split`, without the test."""
         b, v = self.b, self.v
         k = b.fptosi(p, v.vi)
         if self.masked:
@@ -126,13 +146,28 @@ class BlockCode:
             k = b.select(b.icmp_signed("<", k, kmax), k, kmax)
         f = b.fsub(p, b.sitofp(k, v.vf))
         kb = b.extract_element(k, I32(0))
-        idx = b.sub(k, v.splat(kb))
+        return k, f, kb, b.sub(k, v.splat(kb))
+
+    def check(self, kbs, idxs, rising=False):
+        """The test of :meth:`split` for several groups at once (``rising``: the kb do not
+        fall from group to group, so the last is the largest)."""
+        b, v = self.b, self.v
+        every = idxs[0]
+        for idx in idxs[1:]:
+            every = b.or_(every, idx)
         # 0 <= idx < W (W a power of two) is "no bit above log2 W", which also rejects idx < 0
         # (a law whose position falls with t0): one test of the whole register.
-        ok = v.no_bits(idx, ~(self.lanes - 1) & 0xFFFFFFFF)
+        ok = v.no_bits(every, ~(self.lanes - 1) & 0xFFFFFFFF)
         if not self.masked:
-            ok = b.and_(ok, b.icmp_signed("<=", kb, b.sub(self.ns, I32(self.lanes + 1))))
-        return k, f, kb, idx, ok
+            top = kbs[-1]
+            if not rising:
+                for kb in kbs[:-1]:
+                    top = b.select(b.icmp_signed(">", kb, top), kb, top)
+            # 0 <= kb <= ns - W - 1 as one unsigned compare (the limit is loop-invariant).
+            room = b.sub(self.ns, I32(self.lanes))
+            limit = b.select(b.icmp_signed(">", room, I32(0)), room, I32(0))
+            ok = b.and_(ok, b.icmp_unsigned("<", top, limit))
+        return ok
 
     def tables(self, kb):
         """The two loads: trace[kb:kb + W] and trace[kb + 1:kb + 1 + W] (masked at the end)."""
@@ -150,29 +185,47 @@ class BlockCode:
         t0, t1 = self.tables(kb)
         return self.v.permute(t0, idx), self.v.permute(t1, idx)
 
-    def accumulate(self, f, a0, a1):
+    def accumulate(self, f, a0, a1, group=0):
         """a = fma(f, a1 - a0, a0); stack += a; energy = fma(a, a, energy), as the scalar path."""
         b, v = self.b, self.v
+        j = self.at(group)
         a = v.fma(f, b.fsub(a1, a0), a0)
-        v.store(b.fadd(v.load(self.stack, self.j, self.live), a), self.stack, self.j, self.live)
-        v.store(v.fma(a, a, v.load(self.energy, self.j, self.live)), self.energy, self.j, self.live)
+        v.store(b.fadd(v.load(self.stack, j, self.live), a), self.stack, j, self.live)
+        v.store(v.fma(a, a, v.load(self.energy, j, self.live)), self.energy, j, self.live)
 
-    def emit(self, hyperbola):
-        """The whole block; returns ``ok`` (False: nothing written, do it sample by sample)."""
-        x = self.source()
-        p = self.hyperbola(x) if hyperbola else x
-        _, f, kb, idx, ok = self.split(p)
+    def emit(self, hyperbola, groups=1, whole_delay=False):
+        """The whole block; returns ``ok`` (False: nothing written, do it sample by sample).
+
+        ``whole_delay``: tau_first is a whole number d >= 0 (the first sample at a whole number
+        of samples after time zero, 0 included), so with P = sqrt(tau^2 + q) the position
+        p = P - d is exact and floor(p) = floor(P) - d, p - floor(p) = P - floor(P): the same
+        bits without the subtraction per sample (it is one of the block's dozen FP operations).
+        """
+        b = self.b
+        parts = []
+        for g in range(groups):
+            x = self.source(g)
+            if hyperbola and whole_delay:
+                k, f, kb, idx = self.indices(self.from_zero(x))
+                parts.append((k, f, b.sub(kb, b.fptosi(self.tau_first, I32)), idx))
+            else:
+                parts.append(self.indices(self.hyperbola(x) if hyperbola else x))
+        ok = self.check([kb for _, _, kb, _ in parts], [idx for _, _, _, idx in parts], rising=hyperbola)
         with self.b.if_then(ok, likely=True):
-            a0, a1 = self.end_points(kb, idx)
-            self.accumulate(f, a0, a1)
+            for g, (_, f, kb, idx) in enumerate(parts):
+                a0, a1 = self.end_points(kb, idx)
+                self.accumulate(f, a0, a1, g)
         return ok
 
 
-def make_block(hyperbola: bool, masked: bool, lanes: int = LANES, permute: str = TARGET.permute):
+def make_block(hyperbola: bool, masked: bool, lanes: int = LANES, permute: str = TARGET.permute,
+               groups: int = 1, whole_delay: bool = False):
     """Intrinsic ``block(trace, src, stack, energy, j, n, q, tau_first) -> bool``.
 
     Adds the interpolated sample a and a^2 of ``trace`` at the positions of output samples
-    j .. j + W - 1 (only the first n, 1 <= n <= W, when ``masked``) to ``stack`` and ``energy``.
+    j .. j + groups W - 1 (only the first n, 1 <= n <= W, when ``masked``, which needs
+    ``groups`` = 1) to ``stack`` and ``energy``. ``whole_delay`` (hyperbola, unmasked): the
+    caller guarantees tau_first is a whole number >= 0 (see :meth:`BlockCode.emit`).
     With ``hyperbola`` the positions are sqrt(src[j] + q) - tau_first (src = tau2, the float32
     operations of :func:`velspec.scan.moveout.positions`); otherwise they are read from src
     (= pos) and q, tau_first are ignored. Returns False, having written nothing, when the
@@ -187,12 +240,16 @@ def make_block(hyperbola: bool, masked: bool, lanes: int = LANES, permute: str =
             return None
 
         def codegen(context, builder, signature, args):
-            return BlockCode(context, builder, signature, args, lanes, permute, masked).emit(hyperbola)
+            code = BlockCode(context, builder, signature, args, lanes, permute, masked)
+            return code.emit(hyperbola, groups, whole_delay)
 
         return sig, codegen
 
+    if masked and (groups != 1 or whole_delay):
+        raise ValueError("a masked block is one group, and takes any delay")
     typer.__name__ = typer.__qualname__ = (
-        f"block_{'hyperbola' if hyperbola else 'pos'}_{'tail' if masked else 'full'}_{lanes}_{permute}")
+        f"block_{'hyperbola' if hyperbola else 'pos'}{'_whole' if whole_delay else ''}"
+        f"_{'tail' if masked else 'full'}_{groups}x{lanes}_{permute}")
     return intrinsic(typer)
 
 
@@ -207,8 +264,33 @@ def accumulate(trace, p, stack, energy, j):
     energy[j] = fma32(a, a, energy[j])
 
 
-def make_stackers(full_hyperbola, tail_hyperbola, full_positions, tail_positions, lanes: int = LANES):
-    """The per-trace drivers around four block intrinsics of width ``lanes``.
+class Blocks(NamedTuple):
+    """The block intrinsics of one width: two groups, one group, a masked tail; for the
+    hyperbola (positions computed in the block) and for positions read from an array."""
+
+    pair_hyperbola: object
+    full_hyperbola: object
+    tail_hyperbola: object
+    pair_whole_delay: object
+    full_whole_delay: object
+    pair_positions: object
+    full_positions: object
+    tail_positions: object
+    lanes: int
+
+
+def make_blocks(lanes: int = LANES, permute: str = TARGET.permute) -> Blocks:
+    """The block intrinsics of :class:`Blocks` at one width and permute."""
+    return Blocks(make_block(True, False, lanes, permute, groups=2), make_block(True, False, lanes, permute),
+                  make_block(True, True, lanes, permute),
+                  make_block(True, False, lanes, permute, groups=2, whole_delay=True),
+                  make_block(True, False, lanes, permute, whole_delay=True),
+                  make_block(False, False, lanes, permute, groups=2),
+                  make_block(False, False, lanes, permute), make_block(False, True, lanes, permute), lanes)
+
+
+def make_stackers(blocks: Blocks):
+    """The per-trace drivers around the block intrinsics of one width.
 
     Returns (stack_hyperbola, stack_positions, stack_hyperbola_scalar, stack_positions_scalar),
     numba functions that add one trace to ``stack`` and ``energy`` over its live span [j0, j1):
@@ -217,44 +299,72 @@ def make_stackers(full_hyperbola, tail_hyperbola, full_positions, tail_positions
     - ``stack_positions(trace, pos, stack, energy, j0, j1)``;
 
     and the same two sample by sample (:func:`accumulate`, the fallback of the block drivers):
-    the scalar path every block path must match bit for bit.
+    the scalar path every block path must match bit for bit. The drivers run two-group blocks
+    (one test for 2 W samples), then at most one one-group block and one masked tail; a block
+    that fails its test is redone with one-group blocks, and those sample by sample.
     """
+    lanes = blocks.lanes
+    pair_h, full_h, tail_h = blocks.pair_hyperbola, blocks.full_hyperbola, blocks.tail_hyperbola
+    pair_w, full_w = blocks.pair_whole_delay, blocks.full_whole_delay
+    pair_p, full_p, tail_p = blocks.pair_positions, blocks.full_positions, blocks.tail_positions
+
+    @njit(cache=True, nogil=True, inline="always")
+    def hyperbola_samples(trace, tau2, q, tau_first, stack, energy, j, n):
+        for jj in range(np.uint64(j), np.uint64(j + n)):
+            accumulate(trace, np.float32(np.sqrt(tau2[jj] + q) - tau_first), stack, energy, jj)
 
     @njit(cache=True, nogil=True, inline="always")
     def stack_hyperbola(trace, tau2, q, tau_first, stack, energy, j0, j1):
+        # The first sample at a whole number of samples >= 0 after time zero (the usual case)
+        # spares the blocks a subtraction per sample; same bits (BlockCode.emit).
+        whole = tau_first >= 0 and tau_first == np.floor(tau_first) and tau_first < 2.0**24
         j = j0
-        # Two blocks per turn: half the loop branches, and the core sees more independent work.
-        while j + 2 * lanes <= j1 and full_hyperbola(trace, tau2, stack, energy, j, lanes, q, tau_first):
+        while j + 2 * lanes <= j1:
+            if whole:
+                done = pair_w(trace, tau2, stack, energy, j, lanes, q, tau_first)
+            else:
+                done = pair_h(trace, tau2, stack, energy, j, lanes, q, tau_first)
+            if not done:
+                for g in range(2):
+                    jg = j + g * lanes
+                    if not full_h(trace, tau2, stack, energy, jg, lanes, q, tau_first):
+                        hyperbola_samples(trace, tau2, q, tau_first, stack, energy, jg, lanes)
+            j += 2 * lanes
+        if j + lanes <= j1:
+            if whole:
+                done = full_w(trace, tau2, stack, energy, j, lanes, q, tau_first)
+            else:
+                done = full_h(trace, tau2, stack, energy, j, lanes, q, tau_first)
+            if not done:
+                hyperbola_samples(trace, tau2, q, tau_first, stack, energy, j, lanes)
             j += lanes
-            if not full_hyperbola(trace, tau2, stack, energy, j, lanes, q, tau_first):
-                break
-            j += lanes
-        while j + lanes <= j1 and full_hyperbola(trace, tau2, stack, energy, j, lanes, q, tau_first):
-            j += lanes
-        while j < j1:
-            n = min(lanes, j1 - j)
-            if not tail_hyperbola(trace, tau2, stack, energy, j, n, q, tau_first):
-                for jj in range(np.uint64(j), np.uint64(j + n)):
-                    accumulate(trace, np.float32(np.sqrt(tau2[jj] + q) - tau_first), stack, energy, jj)
-            j += lanes
+        if j < j1:
+            if not tail_h(trace, tau2, stack, energy, j, j1 - j, q, tau_first):
+                hyperbola_samples(trace, tau2, q, tau_first, stack, energy, j, j1 - j)
+
+    @njit(cache=True, nogil=True, inline="always")
+    def positions_samples(trace, pos, stack, energy, j, n):
+        for jj in range(np.uint64(j), np.uint64(j + n)):
+            accumulate(trace, pos[jj], stack, energy, jj)
 
     @njit(cache=True, nogil=True, inline="always")
     def stack_positions(trace, pos, stack, energy, j0, j1):
         zero = np.float32(0.0)
         j = j0
-        while j + 2 * lanes <= j1 and full_positions(trace, pos, stack, energy, j, lanes, zero, zero):
+        while j + 2 * lanes <= j1:
+            if not pair_p(trace, pos, stack, energy, j, lanes, zero, zero):
+                for g in range(2):
+                    jg = j + g * lanes
+                    if not full_p(trace, pos, stack, energy, jg, lanes, zero, zero):
+                        positions_samples(trace, pos, stack, energy, jg, lanes)
+            j += 2 * lanes
+        if j + lanes <= j1:
+            if not full_p(trace, pos, stack, energy, j, lanes, zero, zero):
+                positions_samples(trace, pos, stack, energy, j, lanes)
             j += lanes
-            if not full_positions(trace, pos, stack, energy, j, lanes, zero, zero):
-                break
-            j += lanes
-        while j + lanes <= j1 and full_positions(trace, pos, stack, energy, j, lanes, zero, zero):
-            j += lanes
-        while j < j1:
-            n = min(lanes, j1 - j)
-            if not tail_positions(trace, pos, stack, energy, j, n, zero, zero):
-                for jj in range(np.uint64(j), np.uint64(j + n)):
-                    accumulate(trace, pos[jj], stack, energy, jj)
-            j += lanes
+        if j < j1:
+            if not tail_p(trace, pos, stack, energy, j, j1 - j, zero, zero):
+                positions_samples(trace, pos, stack, energy, j, j1 - j)
 
     @njit(cache=True, nogil=True, inline="always")
     def stack_hyperbola_scalar(trace, tau2, q, tau_first, stack, energy, j0, j1):
@@ -269,12 +379,8 @@ def make_stackers(full_hyperbola, tail_hyperbola, full_positions, tail_positions
     return stack_hyperbola, stack_positions, stack_hyperbola_scalar, stack_positions_scalar
 
 
-hyperbola_block = make_block(True, False)
-hyperbola_tail = make_block(True, True)
-positions_block = make_block(False, False)
-positions_tail = make_block(False, True)
-stack_hyperbola, stack_positions, stack_hyperbola_scalar, stack_positions_scalar = make_stackers(
-    hyperbola_block, hyperbola_tail, positions_block, positions_tail)
+BLOCKS = make_blocks()
+stack_hyperbola, stack_positions, stack_hyperbola_scalar, stack_positions_scalar = make_stackers(BLOCKS)
 
 
 # ---------------------------------------------------------------------------------------------
