@@ -1,12 +1,15 @@
 #!/usr/bin/env python
 """velspec benchmarks, one command: semblance kernel, thread scaling, ``velspec run`` on a line.
 
-    python benchmarks/run.py            # full, about 4 minutes on 2 cores
-    python benchmarks/run.py --quick    # shorter version, under a minute
+    python benchmarks/run.py                 # full, about 5 minutes on 2 cores
+    python benchmarks/run.py --quick         # shorter version, about a minute
+    python benchmarks/run.py --cpu haswell   # compiled for an AVX2-only CPU (8-lane path)
 
-Writes ``benchmarks/results/<mode>-<UTC time>.json`` (every figure and the machine) and the same
-figures as a Markdown table in a ``.md`` beside it, printed at the end too. See README.md here
-for what each figure means. Speed is only ever measured here, never asserted in a test.
+Writes ``benchmarks/results/<mode>-<UTC time>.json`` (every figure, the machine, its vector
+extensions and the kernel path taken) and the same figures as a Markdown table in a ``.md``
+beside it, printed at the end too; git ignores new results until a README cites them. See
+README.md here for what each figure means. Speed is only ever measured here, never asserted in a
+test.
 """
 
 from __future__ import annotations
@@ -29,6 +32,10 @@ def _parse_args(argv=None):
     ap.add_argument("--skip-line", action="store_true", help="kernel and thread figures only")
     ap.add_argument("--keep-openblas-env", action="store_true",
                     help="keep OPENBLAS_CORETYPE / OPENBLAS_L2_SIZE as set in the environment")
+    ap.add_argument("--cpu", default=None, metavar="NAME",
+                    help="compile for this LLVM CPU with its own features (NUMBA_CPU_NAME=NAME, "
+                         "NUMBA_CPU_FEATURES=''), e.g. haswell for the AVX2 path; numba's cache "
+                         "goes to a folder of its own for that CPU")
     return ap.parse_args(argv)
 
 
@@ -37,6 +44,14 @@ OPENBLAS_ENV = {k: os.environ.get(k) for k in _OPENBLAS_VARS}
 if ARGS is not None and not ARGS.keep_openblas_env:
     for _k in _OPENBLAS_VARS:
         os.environ.pop(_k, None)
+if ARGS is not None and ARGS.cpu:
+    # numba reads these when it is imported; its cache keys on the CPU, but a folder of its own
+    # keeps the forced build from replacing the native one.
+    import tempfile as _tempfile
+
+    os.environ["NUMBA_CPU_NAME"] = ARGS.cpu
+    os.environ["NUMBA_CPU_FEATURES"] = ""
+    os.environ.setdefault("NUMBA_CACHE_DIR", os.path.join(_tempfile.gettempdir(), f"velspec-numba-{ARGS.cpu}"))
 
 import cProfile  # noqa: E402
 import datetime as _dt  # noqa: E402
@@ -55,14 +70,20 @@ from numba import njit, prange  # noqa: E402
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 import bounds  # noqa: E402
-from numpy_reference import semblance_reference  # noqa: E402
 
 from velspec.scan import kernels, scan_gather, velocity_axis  # noqa: E402
+from velspec.scan.moveout import hyperbolic_span  # noqa: E402
+from velspec.scan.primitives import interp, window_ratio  # noqa: E402
+from velspec.scan.reference import semblance_reference  # noqa: E402
 
 DT = 0.004
 SCAN = dict(vmin=1400.0, vmax=6000.0, window=0.040, stretch_limit=0.5)  # RunParams defaults
 STANDARD = (96, 1500, 120)
-SIZES = [(48, 750, 60), STANDARD, (192, 3000, 240)]
+SMALL = (48, 601, 120)
+SIZES = [SMALL, (61, 601, 120), STANDARD, (192, 3000, 240)]
+# /proc/cpuinfo flags that decide the kernel path (x86) or name the vector unit (ARM)
+VECTOR_FLAGS = ["sse4_2", "avx", "avx2", "fma", "avx512f", "avx512bw", "avx512vl", "avx512vbmi",
+                "asimd", "sve", "sve2"]
 
 
 # -- machine and clock ------------------------------------------------------------------------
@@ -93,15 +114,23 @@ def _caches() -> list[str]:
 
 def machine() -> dict:
     ci = _cpuinfo()
-    flags = ci.get("flags", "").split()
+    flags = (ci.get("flags") or ci.get("Features") or "").split()
+    t = kernels.TARGET
     return {
-        "cpu": ci.get("model name", platform.processor()),
+        "cpu": ci.get("model name") or ci.get("CPU part") or platform.processor(),
+        "vector_extensions": [f for f in VECTOR_FLAGS if f in flags],
+        "kernel_path": t.path,
+        "kernel_lanes": t.lanes,
+        "kernel_permute": t.permute,
+        "compiled_for_cpu": t.cpu,
+        "numba_cpu_env": {k: os.environ.get(k) for k in ("NUMBA_CPU_NAME", "NUMBA_CPU_FEATURES", "NUMBA_CACHE_DIR")},
         "family_model_stepping": [ci.get("cpu family"), ci.get("model"), ci.get("stepping")],
         "logical_cpus": os.cpu_count(),
         "cores_reported": int(ci["cpu cores"]) if "cpu cores" in ci else None,
         "siblings_per_package": int(ci["siblings"]) if "siblings" in ci else None,
         "cpuinfo_mhz": float(ci["cpu MHz"]) if "cpu MHz" in ci else None,
         "avx512f": "avx512f" in flags,
+        "avx2": "avx2" in flags,
         "hypervisor": "hypervisor" in flags,
         "caches_cpu0": _caches(),
         "python": platform.python_version(),
@@ -186,6 +215,12 @@ class OtherLoad:
     def _own():
         t = os.times()
         return t.user + t.system + t.children_user + t.children_system
+
+
+def tag(m: dict) -> str:
+    """CPU, vector extensions and kernel path: printed beside every figure."""
+    ext = " ".join(m["vector_extensions"]) or "no vector flags"
+    return f"[{m['cpu']}; {ext}; kernel {m['kernel_path']} compiled for {m['compiled_for_cpu']}]"
 
 
 def load_average() -> list[float]:
@@ -273,6 +308,109 @@ def bench_kernels(sizes, seconds: float, ref_reps, nominal_ghz: float, clock_ghz
             "vs_reference_median_abs_diff": float(np.median(diff)),
             "vs_reference_share_within_1e-4": float(np.mean(diff < 1e-4)),
         })
+    return out
+
+
+@njit(cache=True, parallel=True, nogil=True, error_model="numpy")
+def plain_numba_semblance(data, q_unit, trials, tau2, mute_c, tau_first, half):
+    """The straightforward numba loop: same definition, live spans and interpolation as the
+    kernel, one sample at a time (LLVM vectorises the square roots and gathers the samples)."""
+    ntr, ns = data.shape
+    nt = tau2.shape[0]
+    out = np.empty((trials.shape[0], nt), dtype=np.float32)
+    last = np.float32(ns - 1)
+    for m in prange(trials.shape[0]):
+        stack = np.zeros(nt, dtype=np.float32)
+        energy = np.zeros(nt, dtype=np.float32)
+        live = np.zeros(nt + 1, dtype=np.int32)
+        for i in range(ntr):
+            q = q_unit[i] * trials[m, 0]
+            j0, j1 = hyperbolic_span(tau2, q, mute_c, tau_first, last)
+            trace = data[i]
+            for j in range(j0, j1):
+                a = interp(trace, np.float32(np.sqrt(tau2[j] + q) - tau_first))
+                stack[j] += a
+                energy[j] += a * a
+            if j1 > j0:
+                live[j0] += 1
+                live[j1] -= 1
+        num = np.zeros(nt)
+        den = np.zeros(nt)
+        n = 0
+        for j in range(nt):
+            n += live[j]
+            if n >= 2:
+                num[j] = np.float64(stack[j]) * stack[j]
+                den[j] = np.float64(n) * energy[j]
+        window_ratio(num, den, half, out[m])
+    return out
+
+
+def bench_plain_loop(seconds: float, rng) -> dict:
+    """Kernel against the straightforward numba loop on the standard gather, calls alternated."""
+    ntr, ns, nv = STANDARD
+    data, offsets = make_gather(ntr, ns, rng)
+    vels = velocity_axis(SCAN["vmin"], SCAN["vmax"], nv)
+    q_unit = (offsets * offsets / (DT * DT)).astype(np.float32)
+    t0 = DT * np.arange(ns)
+    tau2 = np.where(t0 > 0, (t0 / DT) ** 2, -1.0).astype(np.float32)
+    trials = np.zeros((nv, 2), dtype=np.float32)
+    trials[:, 0] = 1.0 / vels**2
+    mute_c = np.float32((1.0 + SCAN["stretch_limit"]) ** 2 - 1.0)
+    half = int(round(SCAN["window"] / DT / 2.0))
+    plain_numba_semblance(data, q_unit, trials, tau2, mute_c, np.float32(0.0), half)
+    kt, pt = [], []
+    start = time.perf_counter()
+    while time.perf_counter() - start < seconds or len(pt) < 5:
+        t = time.perf_counter()
+        plain_numba_semblance(data, q_unit, trials, tau2, mute_c, np.float32(0.0), half)
+        pt.append(time.perf_counter() - t)
+        t = time.perf_counter()
+        scan_gather(data, offsets, DT, 0.0, vels, window=SCAN["window"], stretch_limit=SCAN["stretch_limit"])
+        kt.append(time.perf_counter() - t)
+    return {"plain_loop_min_s": min(pt), "kernel_min_s": min(kt), "ratio": min(pt) / min(kt), "reps": len(pt)}
+
+
+_STARTUP_CHILD = """
+import time
+t = time.perf_counter()
+import numpy as np
+from velspec.scan import kernels, scan_gather, velocity_axis
+t_import = time.perf_counter() - t
+rng = np.random.default_rng(1)
+data = rng.standard_normal((96, 1500)).astype(np.float32)
+offsets = np.linspace(100.0, 2475.0, 96)
+vels = velocity_axis(1400.0, 6000.0, 120)
+t = time.perf_counter()
+scan_gather(data, offsets, 0.004, 0.0, vels)
+t_first = time.perf_counter() - t
+t = time.perf_counter()
+scan_gather(data, offsets, 0.004, 0.0, vels)
+t_second = time.perf_counter() - t
+st = kernels.semblance_panel.stats
+print(repr({"import_s": t_import, "first_call_s": t_first, "second_call_s": t_second,
+            "cache_hits": sum(st.cache_hits.values()), "cache_misses": sum(st.cache_misses.values()),
+            "path": kernels.TARGET.path}))
+"""
+
+
+def bench_startup() -> dict:
+    """``import velspec.scan`` and the first ``scan_gather`` in fresh processes: with an empty
+    numba cache (the first run after install: everything compiled) and again with the cache
+    that run left (a warm start: compiled kernels loaded)."""
+    import ast
+
+    out = {}
+    with tempfile.TemporaryDirectory(prefix="velspec-numba-cache-") as cache:
+        env = dict(os.environ, NUMBA_CACHE_DIR=cache)
+        for name in ("empty_cache", "warm_cache", "warm_cache_again"):
+            t = time.perf_counter()
+            proc = subprocess.run([sys.executable, "-c", _STARTUP_CHILD], env=env, capture_output=True, text=True)
+            wall = time.perf_counter() - t
+            if proc.returncode != 0:
+                out[name] = {"error": proc.stderr[-400:]}
+                continue
+            out[name] = {**ast.literal_eval(proc.stdout.strip().splitlines()[-1]), "process_wall_s": wall}
     return out
 
 
@@ -430,7 +568,10 @@ def markdown(res: dict) -> str:
     m = res["machine"]
     c = res["clock"]
     lines = [f"Machine: {m['cpu']} (family {m['family_model_stepping'][0]} model {m['family_model_stepping'][1]}), "
-             f"{m['logical_cpus']} cores, AVX-512 {'yes' if m['avx512f'] else 'no'}; numba {m['numba']}, "
+             f"{m['logical_cpus']} cores, vector extensions {' '.join(m['vector_extensions']) or 'none listed'}; "
+             f"kernel path **{m['kernel_path']}** (compiled for {m['compiled_for_cpu']}"
+             + (", forced by NUMBA_CPU_NAME" if m["numba_cpu_env"].get("NUMBA_CPU_NAME") else "")
+             + f"); numba {m['numba']}, "
              f"NumPy {m['numpy']}. Clock: nominal {c['nominal_ghz']:.2f} GHz ({c['nominal_source']}); "
              f"measured {c['measured_ghz_before']:.2f} / {c['measured_ghz_after']:.2f} GHz per core "
              f"before / after the kernel runs. Mode: {res['mode']}. Other processes used "
@@ -446,6 +587,11 @@ def markdown(res: dict) -> str:
                      f"| {k['kernel_s']['min_s'] * 1e3:.2f} ms | {k['kernel_samples_per_s'] / 1e9:.2f} G "
                      f"| {k['samples_per_core_cycle_nominal']:.2f} / {k['samples_per_core_cycle_measured_clock']:.2f} "
                      f"| {k['reference_s']['min_s'] * 1e3:.0f} ms | {k['ratio_to_reference']:.0f}x |")
+    pl = res.get("plain_loop")
+    if pl:
+        lines += ["", f"Straightforward numba loop on the standard gather (one sample at a time, LLVM's gathers): "
+                  f"{pl['plain_loop_min_s'] * 1e3:.2f} ms; the kernel {pl['kernel_min_s'] * 1e3:.2f} ms in the same "
+                  f"rounds, {pl['ratio']:.1f}x faster."]
     lines += ["", "| threads | kernel, standard gather | speed-up | efficiency | same bits as 1 thread |",
               "|---|---|---|---|---|"]
     for t in res["threads"]:
@@ -454,14 +600,26 @@ def markdown(res: dict) -> str:
     bd = res.get("bounds")
     if bd:
         hot = bd.get("hot_loop") or {}
-        lines += ["", f"What the 16-sample block costs (one thread, cycles at the measured {bd['clock_ghz']:.2f} GHz; "
+        lanes = bd["variants"][0].get("lanes", 16)
+        lines += ["", f"What the {lanes}-sample block costs (one thread, cycles at the measured {bd['clock_ghz']:.2f} GHz; "
                   f"the kernel's steady-state loop is {hot.get('instructions_per_block', float('nan')):.0f} "
                   f"instructions per block, {hot.get('vector_instructions_per_block', float('nan')):.0f} of them "
                   "vector or mask):", "",
                   "| block variant | ns per block | cycles per block | cycles per sample |", "|---|---|---|---|"]
         for v in bd["variants"]:
             lines.append(f"| {v['variant']} | {v['ns_per_block']:.2f} | {v['cycles_per_block']:.1f} "
-                         f"| {v['cycles_per_block'] / 16:.2f} |")
+                         f"| {v['cycles_per_block'] / lanes:.2f} |")
+    su = res.get("startup")
+    if su:
+        lines += ["", "Start-up in a fresh process (`import velspec.scan`, then `scan_gather` on the standard gather):",
+                  "", "| numba cache | import | first call | second call | kernel loaded from cache |",
+                  "|---|---|---|---|---|"]
+        for name, v in su.items():
+            if "error" in v:
+                lines.append(f"| {name.replace('_', ' ')} | failed | | | |")
+                continue
+            lines.append(f"| {name.replace('_', ' ')} | {v['import_s']:.2f} s | {v['first_call_s']:.2f} s "
+                         f"| {v['second_call_s'] * 1e3:.1f} ms | {'yes' if v['cache_hits'] else 'no'} |")
     ln = res.get("line")
     if ln:
         L = ln["line"]
@@ -506,7 +664,8 @@ def main() -> int:
     else:
         nominal, source = 2.6, "assumed"
     nthreads = numba.config.NUMBA_NUM_THREADS
-    print(f"velspec benchmarks ({res['mode']}), {m['cpu']}, {nthreads} threads", flush=True)
+    tg = tag(m)
+    print(f"velspec benchmarks ({res['mode']}), {nthreads} threads {tg}", flush=True)
     spin_up(nthreads, 1.5)
     clock_before = effective_clock(nthreads)
     rng = np.random.default_rng(2024)
@@ -516,25 +675,40 @@ def main() -> int:
     res["budget_s"] = budget
     res["other_load"] = {}
     with OtherLoad() as w:
-        res["kernel"] = bench_kernels(SIZES, budget["kernel"], [3, 3, 1] if quick else [8, 8, 3],
+        res["kernel"] = bench_kernels(SIZES, budget["kernel"], [3, 3, 3, 1] if quick else [8, 8, 8, 3],
                                       nominal, clock_before, rng)
     res["other_load"]["kernel"] = w.result
     for r in res["kernel"]:
         print(f"  kernel {r['traces']} x {r['samples']} x {r['velocities']}: {r['kernel_s']['min_s'] * 1e3:.2f} ms, "
               f"{r['kernel_samples_per_s'] / 1e9:.2f} G samples/s, {r['samples_per_core_cycle_nominal']:.2f} per "
-              f"core-cycle at {nominal:.2f} GHz, {r['ratio_to_reference']:.0f}x the NumPy reference", flush=True)
+              f"core-cycle at {nominal:.2f} GHz ({r['samples_per_core_cycle_measured_clock']:.2f} at the measured "
+              f"{clock_before:.2f} GHz), {r['ratio_to_reference']:.0f}x the NumPy reference {tg}", flush=True)
     with OtherLoad() as w:
         res["threads"] = bench_threads(budget["threads"], rng)
     res["other_load"]["threads"] = w.result
     for t in res["threads"]:
-        print(f"  {t['threads']} thread(s): {t['kernel_min_s'] * 1e3:.2f} ms, speed-up {t['speedup']:.2f}x", flush=True)
+        print(f"  {t['threads']} thread(s): {t['kernel_min_s'] * 1e3:.2f} ms, speed-up {t['speedup']:.2f}x, "
+              f"same bits as 1 thread: {t['same_bits_as_1_thread']} {tg}", flush=True)
+    res["plain_loop"] = bench_plain_loop(budget["threads"] / 2, rng)
+    pl = res["plain_loop"]
+    print(f"  straightforward numba loop {pl['plain_loop_min_s'] * 1e3:.2f} ms, kernel {pl['kernel_min_s'] * 1e3:.2f} ms: "
+          f"{pl['ratio']:.1f}x {tg}", flush=True)
     numba.set_num_threads(1)
     clock_one = effective_clock(1)
     res["bounds"] = {"clock_ghz": clock_one, "variants": bounds.measure(clock_one, seconds=budget["bounds"]),
                      "hot_loop": bounds.hot_loop_instructions()}
     numba.set_num_threads(nthreads)
     for b in res["bounds"]["variants"]:
-        print(f"  block variant {b['variant']!r}: {b['cycles_per_block']:.1f} cycles per 16 samples", flush=True)
+        print(f"  block variant {b['variant']!r}: {b['cycles_per_block']:.1f} cycles per {b['lanes']} samples "
+              f"at {clock_one:.2f} GHz {tg}", flush=True)
+    res["startup"] = bench_startup()
+    for name, v in res["startup"].items():
+        if "error" in v:
+            print(f"  start-up, {name}: failed: {v['error']}", flush=True)
+            continue
+        print(f"  start-up, {name}: import {v['import_s']:.2f} s, first scan_gather {v['first_call_s']:.2f} s, "
+              f"second {v['second_call_s'] * 1e3:.1f} ms, kernel cache hits {v['cache_hits']} misses "
+              f"{v['cache_misses']} {tg}", flush=True)
     clock_after = effective_clock(nthreads)
     res["clock"] = {"nominal_ghz": nominal, "nominal_source": source,
                     "measured_ghz_before": clock_before, "measured_ghz_after": clock_after,
@@ -548,12 +722,14 @@ def main() -> int:
         print(f"  velspec run: marginal {ln['marginal_s_per_cmp'] * 1e3:.2f} ms per CMP "
               f"({ln['cmps_per_s_marginal']:.0f} CMPs/s), {ln['cmps_per_s_long_line']:.0f} CMPs/s over the long line, "
               f"NumPy reference scan of one gather {ln['reference_scan_one_gather_s']['min_s'] * 1e3:.0f} ms "
-              f"= {ln['reference_over_marginal']:.1f}x the marginal cost", flush=True)
+              f"= {ln['reference_over_marginal']:.1f}x the marginal cost {tg}", flush=True)
     res["load_average_end"] = load_average()
     res["wall_s"] = time.perf_counter() - started
     outdir = Path(args.out) if args.out else HERE / "results"
     outdir.mkdir(parents=True, exist_ok=True)
     stem = f"{res['mode']}-{res['utc'].replace(':', '').replace('-', '')}"
+    if args.cpu:
+        stem += f"-{args.cpu}"
     (outdir / f"{stem}.json").write_text(json.dumps(res, indent=2) + "\n")
     md = markdown(res)
     (outdir / f"{stem}.md").write_text(md)

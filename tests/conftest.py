@@ -6,7 +6,7 @@ import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
 WELLS = ROOT.parent / "shared" / "data" / "wells"
-sys.path.insert(0, str(ROOT / "benchmarks"))  # the plain-NumPy reference lives there
+sys.path.insert(0, str(ROOT / "benchmarks"))  # tests/test_targets.py imports benchmarks/picking.py
 
 
 def ricker(t, f):

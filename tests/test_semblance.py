@@ -5,9 +5,9 @@ evaluation of the same definition."""
 import numpy as np
 import pytest
 from conftest import ricker
-from numpy_reference import semblance_reference
 
 from velspec.scan import scan_gather, velocity_axis
+from velspec.scan.reference import semblance_reference
 
 DT = 0.004
 

@@ -3,8 +3,10 @@
 Same signature and skeleton as :func:`velspec.scan.kernels.semblance`: parallel over trials
 with ``prange`` (each trial is computed by one thread from start to end, so the output bits do
 not depend on the thread count), per trial a loop over traces that calls
-:func:`velspec.scan.moveout.positions` for the moveout and :func:`velspec.scan.kernels._interp`
-for the samples, then a sliding window over t0.
+:func:`velspec.scan.moveout.positions` for the moveout and
+:func:`velspec.scan.primitives.interp` for the samples, then a sliding window over t0
+(:func:`velspec.scan.primitives.window_ratio`). AB semblance and weighted semblance are one
+kernel, :func:`_trend_panel`, with a flag for the weight.
 
 Notation used in the docstrings: a_i(t) is the sample of trace i on the trial moveout at output
 time t (linear interpolation), the sums over i run over the N(t) traces live at t (inside the
@@ -17,8 +19,8 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from .kernels import _interp, _window_ratio
 from .moveout import positions
+from .primitives import interp, window_ratio
 
 # Live traces count as one offset for the A + B*phi fit when the centred sum of phi^2 is below
 # this fraction of the sum of phi^2: it is then only float64 rounding of the running sums.
@@ -64,7 +66,7 @@ def _trend_sums(data, q_unit, phi, s2, eta, law, tau2, mute_c, tau_first, sums):
         trace = data[i]
         p = phi[i]
         for j in range(j0, j1):
-            a = _interp(trace, pos[j])
+            a = interp(trace, pos[j])
             sa[j] += a
             sap[j] += a * p
             saa[j] += a * a
@@ -123,6 +125,26 @@ def _ab_energies(sums, fit, energy):
 
 
 @njit(cache=True, parallel=True, nogil=True)
+def _trend_panel(data, q_unit, trials, law, tau2, mute_c, tau_first, half, weighted):
+    """AB semblance panel, or with ``weighted`` the weighted semblance panel (one body)."""
+    nt = tau2.shape[0]
+    out = np.empty((trials.shape[0], nt), dtype=np.float32)
+    phi = _offset_trend(q_unit)
+    for m in prange(trials.shape[0]):
+        sums = np.empty((6, nt))
+        _trend_sums(data, q_unit, phi, trials[m, 0], trials[m, 1], law, tau2, mute_c,
+                    tau_first, sums)
+        fit = np.empty(nt)
+        energy = np.empty(nt)
+        _ab_energies(sums, fit, energy)
+        if weighted:
+            for j in range(nt):
+                if energy[j] > 0.0:
+                    fit[j] = fit[j] * fit[j] / energy[j]
+        window_ratio(fit, energy, half, out[m])
+    return out
+
+
 def ab_semblance(data, q_unit, trials, law, tau2, mute_c, tau_first, half):
     """AB semblance panel of one gather: coherence that allows amplitude to vary with offset.
 
@@ -179,21 +201,9 @@ def ab_semblance(data, q_unit, trials, law, tau2, mute_c, tau_first, half):
     amplitude variation: Geophysics 67, 1664-1672.
     Fomel, S., 2009, Velocity analysis using AB semblance: Geophysical Prospecting 57, 311-321.
     """
-    nt = tau2.shape[0]
-    out = np.empty((trials.shape[0], nt), dtype=np.float32)
-    phi = _offset_trend(q_unit)
-    for m in prange(trials.shape[0]):
-        sums = np.empty((6, nt))
-        _trend_sums(data, q_unit, phi, trials[m, 0], trials[m, 1], law, tau2, mute_c,
-                    tau_first, sums)
-        fit = np.empty(nt)
-        energy = np.empty(nt)
-        _ab_energies(sums, fit, energy)
-        _window_ratio(fit, energy, half, out[m])
-    return out
+    return _trend_panel(data, q_unit, trials, law, tau2, mute_c, tau_first, half, False)
 
 
-@njit(cache=True, parallel=True, nogil=True)
 def weighted_semblance(data, q_unit, trials, law, tau2, mute_c, tau_first, half):
     """Weighted semblance panel of one gather: AB semblance with each sample weighted by its fit.
 
@@ -244,21 +254,7 @@ def weighted_semblance(data, q_unit, trials, law, tau2, mute_c, tau_first, half)
     U15-U22.
     Fomel, S., 2009, Velocity analysis using AB semblance: Geophysical Prospecting 57, 311-321.
     """
-    nt = tau2.shape[0]
-    out = np.empty((trials.shape[0], nt), dtype=np.float32)
-    phi = _offset_trend(q_unit)
-    for m in prange(trials.shape[0]):
-        sums = np.empty((6, nt))
-        _trend_sums(data, q_unit, phi, trials[m, 0], trials[m, 1], law, tau2, mute_c,
-                    tau_first, sums)
-        fit = np.empty(nt)
-        energy = np.empty(nt)
-        _ab_energies(sums, fit, energy)
-        for j in range(nt):
-            if energy[j] > 0.0:
-                fit[j] = fit[j] * fit[j] / energy[j]
-        _window_ratio(fit, energy, half, out[m])
-    return out
+    return _trend_panel(data, q_unit, trials, law, tau2, mute_c, tau_first, half, True)
 
 
 @njit(cache=True, parallel=True, nogil=True)
@@ -335,7 +331,7 @@ def crosscorrelation_sum(data, q_unit, trials, law, tau2, mute_c, tau_first, hal
             trace = data[i]
             row = corrected[i]
             for j in range(j0, j1):
-                row[j] = _interp(trace, pos[j])
+                row[j] = interp(trace, pos[j])
             c = cum[i]
             for j in range(nt):
                 a = np.float64(row[j])

@@ -4,7 +4,7 @@ A law is one small numba function that fills the fractional sample position of e
 for one trace and one trial, and returns the live span [j0, j1) that survives the NMO-stretch
 mute and the end of the trace. Coherence kernels call :func:`positions` and never look inside,
 so a new law is one branch here and one name in :data:`LAWS`. The semblance kernel evaluates
-the hyperbolic law itself, sixteen t0 samples at a time, with exactly the float32 operations of
+the hyperbolic law itself, a vector block of t0 samples at a time, with exactly the float32 operations of
 :func:`positions` (sqrt(tau^2 + q) - t_first / dt) over the span of :func:`hyperbolic_span`.
 
 Times are handled in sample units: tau = t0 / dt, q = x^2 / (v^2 dt^2), so the hyperbola is
@@ -31,7 +31,7 @@ _WALK = 4  # steps tried from the guessed index before falling back to binary se
 
 
 @njit(cache=True, nogil=True, inline="always")
-def _search(tau2, v, tau_first, right):
+def guessed_search(tau2, v, tau_first, right):
     """np.searchsorted(tau2, v, side) for the sorted tau2 = (tau_first + j)^2 of the kernels.
 
     The index is guessed from that form and checked against tau2 itself, so the answer is the
@@ -58,9 +58,9 @@ def hyperbolic_span(tau2, q, mute_c, tau_first, last):
     """
     # tau2 is non-decreasing (t0 <= 0 marked -1), NMO stretch (t - t0)/t0 falls as t0 grows and
     # arrival time grows with t0, so the live samples form one span found by searching tau2.
-    j0 = _search(tau2, max(q / mute_c, np.float32(1e-30)), tau_first, False)
+    j0 = guessed_search(tau2, max(q / mute_c, np.float32(1e-30)), tau_first, False)
     reach = (last + tau_first) * (last + tau_first) - q
-    j1 = _search(tau2, reach, tau_first, True)
+    j1 = guessed_search(tau2, reach, tau_first, True)
     # Float32 rounding may push the last position a hair past the end; drop it.
     while j1 > j0 and math.sqrt(tau2[j1 - 1] + q) - tau_first > last:
         j1 -= 1
@@ -102,7 +102,7 @@ def positions(law, tau2, q, eta, mute_c, tau_first, last, pos):
         for j in range(np.uint64(max(j0, 0)), np.uint64(max(j1, 0))):
             pos[j] = math.sqrt(tau2[j] + q) - tau_first
         return j0, j1
-    j0 = _search(tau2, max(q / mute_c, np.float32(1e-30)), tau_first, False)
+    j0 = guessed_search(tau2, max(q / mute_c, np.float32(1e-30)), tau_first, False)
     twoeta = np.float32(2.0) * eta
     q2 = q * q
     j1 = j0
