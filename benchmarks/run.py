@@ -291,7 +291,7 @@ def bench_kernels(sizes, seconds: float, ref_reps, nominal_ghz: float, clock_ghz
         if elapsed >= seconds and all(len(r) >= n for r, n in zip(rtimes, ref_reps)):
             break
     out = []
-    for (ntr, ns, nv), (data, offsets, vels, panel), kt, rt, ref_panel in zip(sizes, cases, ktimes, rtimes, ref_panels):
+    for (ntr, ns, nv), (_data, offsets, vels, panel), kt, rt, ref_panel in zip(sizes, cases, ktimes, rtimes, ref_panels):
         k = {"min_s": float(min(kt)), "median_s": float(np.median(kt)), "reps": len(kt)}
         r = {"min_s": float(min(rt)), "median_s": float(np.median(rt)), "reps": len(rt)}
         samples = ntr * ns * nv
@@ -451,19 +451,24 @@ def _profile_buckets(prof: cProfile.Profile) -> dict:
         "semblance kernel (numba)": ct("velspec/scan/kernels.py", "semblance"),
         "scan_gather outside the kernel": ct("velspec/scan/__init__.py", "scan_gather")
         - ct("velspec/scan/kernels.py", "semblance"),
-        "picking (velspec/pick.py pick_panel)": ct("velspec/pick.py", "pick_panel"),
+        "picking (velspec/pick pick_panel)": ct("velspec/pick/__init__.py", "pick_panel"),
+        "spectrum smoothing (smoothed_panel)": ct("velspec/smoothing.py", "smoothed_panel"),
+        "conditioning (condition_gather)": ct("velspec/condition.py", "condition_gather"),
+        "sea floor (sea_floor_pass)": ct("velspec/pipeline.py", "sea_floor_pass"),
+        "regularised field (regularised_dix)": ct("velspec/regularised.py", "regularised_dix"),
         "reading gathers (SegyLine.read_gather)": ct("velspec/io/segy.py", "read_gather"),
         "opening the line: header survey (open_line)": ct("velspec/io/segy.py", "open_line"),
         "input checksum (SegyLine.identity)": ct("velspec/io/segy.py", "identity"),
-        "line pass: Dix, depth (pipeline.line_pass)": ct("velspec/pipeline.py", "line_pass"),
-        "writing the result (write_result)": ct("velspec/io/result.py", "write_result"),
+        "line pass: Dix, depth, outside the regularised field (line_pass)": ct("velspec/linepass.py", "line_pass")
+        - ct("velspec/regularised.py", "regularised_dix"),
+        "writing the result (write_result)": ct("velspec/io/hdf5.py", "write_result"),
     }
     parts["everything else"] = total - sum(parts.values())
     return {"total_s": total, "parts_s": parts}
 
 
 def _profiled_run(path, out, params):
-    from velspec.io.result import write_result
+    from velspec.io.hdf5 import write_result
     from velspec.pipeline import run_line
 
     write_result(out, run_line(path, params), force=True)
@@ -654,7 +659,7 @@ def main() -> int:
     quick = args.quick
     started = time.perf_counter()
     res = {"mode": "quick" if quick else "full",
-           "utc": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+           "utc": _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ"),
            "load_average_start": load_average(), "machine": machine()}
     m = res["machine"]
     if args.clock_ghz:

@@ -7,8 +7,8 @@ name in :data:`MEASURES` and :data:`velspec.scan.moveout.LAWS`; the numba kernel
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Callable
 
 import numpy as np
 
