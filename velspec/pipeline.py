@@ -22,7 +22,7 @@ import numpy as np
 
 from . import __version__
 from .condition import ConditionReport, condition_gather, supergather
-from .cpu import set_threads
+from .cpu import host, set_threads
 from .errors import InputError
 from .io.hdf5 import read_result
 from .io.picks_csv import read_functions
@@ -332,7 +332,7 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
                       coherence=(np.stack([o.panel for o in kept]) if kept
                                  else np.zeros((0, velocities.size, t0.size), dtype=np.float32)))
     attrs = {"velspec_version": __version__, "created": now_utc(), "parameters": params.to_dict(),
-             "input": identity, "skipped_cmps": len(skipped), "nan_traces": nan_traces}
+             "input": identity, "skipped_cmps": len(skipped), "nan_traces": nan_traces, "machine": host()}
     qc = {"live_traces": np.array([o.live for o in analysed], dtype=np.int32),
           "nan_traces": np.array([o.dropped_nan for o in analysed], dtype=np.int32),
           "dead_traces": np.array([o.dropped_dead for o in analysed], dtype=np.int32),

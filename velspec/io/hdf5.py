@@ -220,7 +220,7 @@ def read_result(path: str | Path) -> LineAnalysis:
                 raise InputError(f"{path}: not a complete velspec result (no /{key})")
         data = {}
         h5.visititems(lambda name, obj: data.__setitem__(name, obj[()]) if isinstance(obj, h5py.Dataset) else None)
-    for key in ("parameters", "input"):
+    for key in ("parameters", "input", "machine"):
         if isinstance(attrs.get(key), (str, bytes)):
             attrs[key] = json.loads(attrs[key])
     return _from_datasets(data, attrs)
