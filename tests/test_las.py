@@ -1,25 +1,22 @@
-"""The LAS 2.0 reader on the two open well logs and on small files written here, and the sonic
+"""The LAS 2.0 reader on the two open well logs (against lasio, an independent reader, and the
+figures of ../shared/data/wells/SOURCES.md) and on small files written here, and the sonic
 blocking that turns a log into a layered model."""
-
-from pathlib import Path
 
 import numpy as np
 import pytest
+from conftest import WELLS, need_well
 from scipy.integrate import trapezoid
 
 from velspec.errors import InputError
 from velspec.io.las import read_las, read_sonic
 from velspec.synth import blocked_model_from_sonic, zero_offset_times
 
-WELLS = Path(__file__).resolve().parents[2] / "shared" / "data" / "wells"
 F03 = WELLS / "F03-02.las"
 P135 = WELLS / "P-135.las"
 
 
 def need(path):
-    if not path.exists():
-        pytest.skip(f"open well log {path} not present (shared data absent)")
-    return path
+    return need_well(path.name)
 
 
 def v_of(dt):
@@ -64,6 +61,47 @@ def test_p135_wrapped_file_depth_range_and_velocities():
     # the shear log is slower than the P log wherever both exist (Vp/Vs > 1, physics)
     both = ok & np.isfinite(curves["DTS"])
     assert both.sum() > 100 and np.all(curves["DTS"][both] > curves["DT"][both])
+
+
+# --- the open logs against lasio (an independent LAS reader from PyPI), sample by sample ------
+
+# Absent-value markers of each file: the NULL its ~Well section declares (LAS 2.0, CWLS 1992) and,
+# for F03-02, the -9999 its data actually use (SOURCES.md: "absent value -9999 / -999.25").
+DOCUMENTED_ABSENT = {"F03-02.las": (-999.25, -9999.0), "P-135.las": (-999.25,)}
+
+
+@pytest.mark.parametrize("name", ["F03-02.las", "P-135.las"])
+def test_open_logs_agree_with_lasio_sample_by_sample(name):
+    lasio = pytest.importorskip("lasio", reason="lasio (the reference LAS reader) is in the test extra")
+    path = need_well(name)
+    # null_policy "none": lasio's raw numbers, so which values count as absent is judged here,
+    # from the file's header and SOURCES.md, not by either reader; engine "normal" reads WRAP YES.
+    ref = lasio.read(str(path), null_policy="none", engine="normal")
+    curves, units, well = read_las(path)
+    assert list(curves) == [c.mnemonic for c in ref.curves]
+    assert units == {c.mnemonic: c.unit for c in ref.curves}
+    assert well["WRAP"].split()[0].upper() == str(ref.version["WRAP"].value).split()[0].upper()
+    for key in ("NULL", "STRT", "STOP", "STEP"):
+        assert float(well[key]) == float(ref.well[key].value), key
+    raw = np.asarray(ref.data, dtype=np.float64)
+    assert raw.shape == (len(curves["DEPT"]), len(curves))     # no absent index in these files
+    order = np.argsort(raw[:, 0], kind="stable")                # velspec returns the index increasing
+    raw = raw[order]
+    absent = np.isin(raw, DOCUMENTED_ABSENT[name])
+    assert absent.any()
+    for j, (mnem, got) in enumerate(curves.items()):
+        want = raw[:, j]
+        np.testing.assert_array_equal(np.isnan(got), absent[:, j], err_msg=f"{name} {mnem}: absent samples")
+        np.testing.assert_array_equal(got[~absent[:, j]], want[~absent[:, j]], err_msg=f"{name} {mnem}")
+    # the index spans the header's STRT..STOP in STEP (P-135: 197.5104-951.8904 m by 0.1524 m,
+    # wrapped); F03-02 declares STEP 0 (irregular) and runs from 2153.8647 m up to 9.906 m
+    z = curves["DEPT"]
+    strt, stop = sorted((float(well["STRT"]), float(well["STOP"])))
+    assert z[0] == pytest.approx(strt, abs=1e-6) and z[-1] == pytest.approx(stop, abs=1e-6)
+    step = float(well["STEP"])
+    if step:
+        assert z.size == round((stop - strt) / abs(step)) + 1
+        np.testing.assert_allclose(np.diff(z), abs(step), atol=1e-3)
 
 
 def test_read_sonic_matches_read_las():
