@@ -122,13 +122,15 @@ def apply_edits(cmp: np.ndarray, picks: np.ndarray, edits: dict, mode: str, para
 
 
 def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrms: np.ndarray,
-                     params: RunParams) -> list[int]:
+                     params: RunParams, near_rows=None) -> list[int]:
     """Flag (in place) picks far from the running median of the stacking-velocity field.
 
     The median over +-``lateral_cmps`` CMPs at each t0 follows a step in velocity (a fault, a
     change of facies) where a mean would smear it; a pick is an outlier only where it differs
     from it by more than ``outlier_tolerance`` and by more than ``outlier_sigmas`` of its own
     uncertainty. A person's picks are never rejected. Returns the rows with a pick flagged.
+    ``near_rows(row, radius)`` gives the neighbouring rows on a grid of bins
+    (:mod:`velspec.neighbours`); default: the rows along the line.
     """
     pp = params.pick
     if pp.lateral_cmps == 0 or len(slices) < 3:
@@ -142,7 +144,7 @@ def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrm
             continue
         # the median over the neighbours' fields at this CMP's pick times only; the window
         # shrinks at the ends of the line rather than repeating the end CMP
-        near = vrms[max(row - k, 0): row + k + 1]
+        near = vrms[max(row - k, 0): row + k + 1] if near_rows is None else vrms[near_rows(row, k)]
         cols = np.clip(np.searchsorted(t0, p["t0"]), 0, t0.size - 1)
         if np.array_equal(t0[cols], p["t0"]):      # automatic picks sit on samples: no interpolation
             ref = np.median(near[:, cols], axis=0)
@@ -191,7 +193,7 @@ def _cmp_fields(t0: np.ndarray, p: np.ndarray, path: np.ndarray, params: RunPara
 
 
 def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndarray, params: RunParams,
-              edits: dict | None = None) -> tuple[np.ndarray, LineFields]:
+              edits: dict | None = None, near_rows=None) -> tuple[np.ndarray, LineFields]:
     """Fields on every (CMP, t0) from the picks.
 
     Parameters
@@ -207,6 +209,9 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
     params : RunParams
     edits : dict, optional
         A person's picks ``{cmp: (t0, vrms)}``, applied in ``params.pick.edit_mode``.
+    near_rows : callable, optional
+        ``near_rows(row, radius)``: the lateral neighbours of a row on a grid of bins (see
+        :func:`lateral_outliers`); default along the line.
 
     Returns
     -------
@@ -251,7 +256,7 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
 
     for row in range(ncmp):
         fill(row)
-    for row in lateral_outliers(t0, picks, slices, vrms, params):   # judged on the first fields, then redone
+    for row in lateral_outliers(t0, picks, slices, vrms, params, near_rows):   # judged on the first fields, then redone
         fill(row)
     z, t_of_z, vint_z = depth_fields(t0, vint, params.interval.dz)
     return picks, LineFields(vrms=vrms, vint=vint, vint_raw=vint_raw, vint_sigma=vint_sigma, forced=forced,

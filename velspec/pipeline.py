@@ -28,6 +28,7 @@ from .io.hdf5 import read_result
 from .io.picks_csv import read_functions
 from .io.segy import Gather, SegyLine, open_line
 from .linepass import LineFields, line_pass
+from .neighbours import LineNeighbours
 from .params import RunParams, load_toml
 from .pick import pick_panel
 from .pick.guide import GuideFor, guide_source
@@ -151,56 +152,69 @@ def sea_floor_pass(line: SegyLine, params: RunParams, most: int = 2000) -> tuple
 
 def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None = None,
                 progress: Callable[[int], None] | None = None,
-                guide_for: GuideFor | None = None, sea_floor: np.ndarray | None = None) -> Iterator[CmpOutcome]:
-    """Yield one :class:`CmpOutcome` per CMP, reading ``params.block`` gathers at a time.
+                guide_for: GuideFor | None = None, sea_floor: np.ndarray | None = None, *,
+                hood=None, span: tuple[int, int] | None = None) -> Iterator[CmpOutcome]:
+    """Yield one :class:`CmpOutcome` per analysed CMP, reading ``params.block`` gathers at a time.
 
     A CMP is picked once the panels of its neighbours within ``params.pick.smooth_cmps`` are
     scanned, so at most one block plus that many panels on each side are held at a time.
     ``sea_floor`` (ncmp, 2) holds the sea-floor time (s) and water velocity (m/s) of every CMP of
     the line (NaN where none).
+
+    ``positions`` are the line positions analysed (default: every CMP), item ``i`` of the
+    analysis being CMP ``positions[i]``; ``hood`` says which items are neighbours
+    (:mod:`velspec.neighbours`; default: along the line). With ``span = (lo, hi)`` only items
+    ``lo..hi-1`` are picked and yielded, and the halo of neighbours their smoothing needs is
+    scanned around them: a block of a resumed or distributed run gives the same bits as the
+    whole line in one pass.
     """
     positions = np.arange(line.ncmp) if positions is None else np.asarray(positions)
+    hood = hood if hood is not None else LineNeighbours(len(positions))
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
-    keep = set(spectra_positions(line.ncmp, params.keep_spectra).tolist())
+    keep = set(spectra_positions(len(positions), params.keep_spectra).tolist())
     times = line.times
     half = params.pick.smooth_cmps
     guide_for = guide_for or (lambda cmp: None)
-    pending: list[_Scanned] = []   # scanned, in position order; the first unpicked at index `nxt`
-    nxt = 0
+    lo, hi = (0, len(positions)) if span is None else (int(span[0]), int(span[1]))
+    if hi <= lo:
+        return
+    scan_lo, scan_hi = hood.first(lo, half), hood.last(hi - 1, half) + 1
+    pending: dict[int, _Scanned] = {}   # scanned items by number; those below `nxt` are picked
+    nxt = lo
 
     def ready(upto: float):
-        nonlocal nxt, pending
-        while nxt < len(pending) and pending[nxt].position + half <= upto:
+        nonlocal nxt
+        while nxt < hi and nxt in pending and hood.last(nxt, half) <= upto:
             item = pending[nxt]
             if item.panel is not None:
-                panel = smoothed_panel([s.panel for s in pending], [s.position for s in pending], nxt, half)
+                near, dist = hood.near(nxt, half)
+                panel = smoothed_panel([pending[j].panel for j in near], dist, int(np.flatnonzero(near == nxt)[0]),
+                                       half)
                 pick_one(item.outcome, item.gather, panel, item.best_eta, times, params, velocities,
                          guide_for(item.outcome.cmp),
                          None if sea_floor is None else tuple(map(float, sea_floor[item.position])))
-                if int(item.position) in keep:
+                if nxt in keep:
                     item.outcome.panel = panel
             nxt += 1
             yield item.outcome
-        # forget what no later CMP needs: panels more than `half` positions behind the next one
-        first_needed = pending[nxt].position - half if nxt < len(pending) else np.inf
-        drop = 0
-        while drop < nxt and pending[drop].position < first_needed:
-            drop += 1
-        pending = pending[drop:]
-        nxt -= drop
+        # forget what no later CMP needs: panels before the first neighbour of the next one
+        first_needed = hood.first(nxt, half) if nxt < hi else np.inf
+        for j in [j for j in pending if j < first_needed]:
+            del pending[j]
 
     conditioned = _Conditioned(line, params)
-    for start in range(0, len(positions), params.block):
-        block = positions[start: start + params.block]
-        for k in block:
-            gather, report = conditioned.gather(int(k))
+    for start in range(scan_lo, scan_hi, params.block):
+        block = range(start, min(start + params.block, scan_hi))
+        for i in block:
+            k = int(positions[i])
+            gather, report = conditioned.gather(k)
             outcome, panel, best = scan_one(gather, times, line.dt, params, velocities)
-            outcome.position = int(k)
+            outcome.position = k
             outcome.clipped, outcome.noisy = report.traces_clipped, report.noisy
-            pending.append(_Scanned(int(k), outcome, gather, panel, best))
+            pending[i] = _Scanned(k, outcome, gather, panel, best)
         yield from ready(float(block[-1]))
         if progress is not None:
-            progress(len(block))
+            progress(sum(1 for i in block if lo <= i < hi))
     yield from ready(np.inf)
 
 
@@ -312,12 +326,8 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
     if nan_traces:
         warnings_out.append(f"{nan_traces} trace(s) with NaN or infinite samples were left out")
     rows = np.array([o.position for o in analysed], dtype=np.int64)
-    cmp = ix.cmp[rows]
-    picks = np.concatenate([o.picks for o in analysed])
-    paths = np.stack([o.path for o in analysed]).astype(np.float32)
-    # In guide mode the edits already steered the picking; the line pass then only replaces.
-    line_edits = edits if params.pick.edit_mode == "replace" else None
-    picks, fields = line_pass(t0, cmp, picks, paths, params, edits=line_edits)
+    result = analyse_outcomes(analysed, t0, ix.cmp[rows], ix.cmp_x[rows], ix.cmp_y[rows], sea_floor[rows],
+                              water_velocity[rows], params, edits)
     kept = [o for o in analysed if o.panel is not None]
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
     spectra = Spectra(cmp=np.array([o.cmp for o in kept], dtype=np.int64), velocity=velocities.astype(np.float64),
@@ -325,17 +335,45 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
                                  else np.zeros((0, velocities.size, t0.size), dtype=np.float32)))
     attrs = {"velspec_version": __version__, "created": now_utc(), "parameters": params.to_dict(),
              "input": identity, "skipped_cmps": len(skipped), "nan_traces": nan_traces}
+    qc = dict(result.qc, **skipped_qc(skipped))
+    return result.replace(qc=qc, spectra=spectra, attrs=attrs, warnings=warnings_out)
+
+
+def skipped_qc(skipped: list[CmpOutcome]) -> dict:
+    """The ``/qc`` arrays of the CMPs left out (fewer than ``MIN_LIVE`` live traces)."""
+    return {"skipped_cmp": np.array([o.cmp for o in skipped], dtype=np.int64),
+            "skipped_nan_traces": np.array([o.dropped_nan for o in skipped], dtype=np.int32)}
+
+
+def analyse_outcomes(analysed: list[CmpOutcome], t0: np.ndarray, cmp: np.ndarray, cmp_x: np.ndarray,
+                     cmp_y: np.ndarray, water_bottom: np.ndarray, water_velocity: np.ndarray, params: RunParams,
+                     edits: dict | None = None, near_rows=None) -> LineAnalysis:
+    """The line pass over the outcomes of consecutive analysed CMPs (the whole line, or a window
+    of it): fields, the line pass's flags and the per-CMP ``/qc`` arrays.
+
+    ``cmp``, ``cmp_x``, ``cmp_y``, ``water_bottom`` (s) and ``water_velocity`` (m/s) hold one value
+    per outcome. ``edits`` are a person's picks (``{cmp: (t0, vrms)}``; those of other CMPs are
+    ignored); ``near_rows(row)`` gives the rows that are lateral neighbours of a row (default:
+    along the line). The result has no spectra, no line-wide QC and no provenance.
+    """
+    picks = np.concatenate([o.picks for o in analysed])
+    paths = np.stack([o.path for o in analysed]).astype(np.float32)
+    # In guide mode the edits already steered the picking; the line pass then only replaces.
+    line_edits = edits if params.pick.edit_mode == "replace" else None
+    if line_edits:
+        have = set(int(x) for x in cmp)
+        line_edits = {c: f for c, f in line_edits.items() if c in have} or None
+    extra = {} if near_rows is None else {"near_rows": near_rows}
+    picks, fields = line_pass(t0, cmp, picks, paths, params, edits=line_edits, **extra)
     qc = {"live_traces": np.array([o.live for o in analysed], dtype=np.int32),
           "nan_traces": np.array([o.dropped_nan for o in analysed], dtype=np.int32),
           "dead_traces": np.array([o.dropped_dead for o in analysed], dtype=np.int32),
           "clipped_traces": np.array([o.clipped for o in analysed], dtype=np.int32),
           "noisy_traces": np.array([o.noisy for o in analysed], dtype=np.int32),
           "path": paths,
-          "water_bottom": sea_floor[rows].astype(np.float64),
-          "water_velocity": water_velocity[rows].astype(np.float64),
-          "skipped_cmp": np.array([o.cmp for o in skipped], dtype=np.int64),
-          "skipped_nan_traces": np.array([o.dropped_nan for o in skipped], dtype=np.int32)}
-    return _assemble(t0, cmp, ix.cmp_x[rows], ix.cmp_y[rows], picks, fields, qc, spectra, attrs, warnings_out)
+          "water_bottom": np.asarray(water_bottom, dtype=np.float64),
+          "water_velocity": np.asarray(water_velocity, dtype=np.float64)}
+    return _assemble(t0, cmp, cmp_x, cmp_y, picks, fields, qc, None, {}, [])
 
 
 def _assemble(t0, cmp, cmp_x, cmp_y, picks, fields: LineFields, qc, spectra, attrs, warnings_out) -> LineAnalysis:
