@@ -236,23 +236,25 @@ def read_outcomes(h5: h5py.File, lo: int, hi: int) -> list[CmpOutcome]:
     scanned = h5["scanned"][lo:hi]
     start, count = h5["pick_start"][lo:hi], h5["pick_count"][lo:hi]
     paths = h5["path"][lo:hi]
-    if hi > lo and scanned.any():
-        a = int(start[scanned == 1].min())
-        b = int((start + count)[scanned == 1].max())
-        picks = h5["picks"][a:b]
-    else:
-        a, picks = 0, np.zeros(0, PICK_DTYPE)
+    block = int(h5.attrs["block"])
     panel_row = {int(item): k for k, item in enumerate(h5["panel_item"][()])}
     out = []
-    for r in range(hi - lo):
-        o = CmpOutcome(position=int(positions[r]), cmp=int(cmp[r]),
-                       **{name: int(counts[name][r]) for name in _COUNTS})
-        if scanned[r]:
-            o.picks = picks[start[r] - a: start[r] - a + count[r]].copy()
-            o.path = paths[r]
-            if lo + r in panel_row:
-                o.panel = h5["panel"][panel_row[lo + r]]
-        out.append(o)
+    # blocks may have finished in any order (a cluster), but each block's picks are contiguous
+    for first in range(lo - lo % block, hi, block):
+        a, b = max(first, lo) - lo, min(first + block, hi) - lo
+        live = scanned[a:b] == 1
+        if live.any():
+            p0 = int(start[a:b][live].min())
+            picks = h5["picks"][p0: int((start[a:b] + count[a:b])[live].max())]
+        for r in range(a, b):
+            o = CmpOutcome(position=int(positions[r]), cmp=int(cmp[r]),
+                           **{name: int(counts[name][r]) for name in _COUNTS})
+            if scanned[r]:
+                o.picks = picks[start[r] - p0: start[r] - p0 + count[r]].copy()
+                o.path = paths[r]
+                if lo + r in panel_row:
+                    o.panel = h5["panel"][panel_row[lo + r]]
+            out.append(o)
     return out
 
 

@@ -359,6 +359,19 @@ class SegyLine:
             os.close(self._fd)
             self._fd = None
 
+    def __getstate__(self) -> dict:
+        # sent to the workers of a cluster: the header index travels, the open file does not
+        state = dict(self.__dict__)
+        state["_fd"] = None
+        return state
+
+    def __setstate__(self, state: dict) -> None:
+        self.__dict__.update(state)
+        if not self.path.is_file() or self.path.stat().st_size != self.size:
+            raise InputError(f"{self.path}: not the line the run was started on (missing, or another size, "
+                             "here); every worker must read the same file at the same path (shared storage)")
+        self._fd = os.open(self.path, os.O_RDONLY)
+
     def __enter__(self) -> SegyLine:
         return self
 
