@@ -275,7 +275,8 @@ def check_compatible(path: Path, h5: h5py.File, params, identity: dict, position
     if theirs.get("checksum") != identity.get("checksum"):
         raise InputError(f"{path} belongs to a run on another input ({theirs.get('path')}, "
                          f"{theirs.get('checksum', '?')[:19]}...); resume with that line or start again with --force")
-    ours, stored = run_signature(params), json.loads(attrs["parameters"])
+    # compared as JSON, the form they are stored in (tuples read back as lists)
+    ours, stored = json.loads(json.dumps(run_signature(params), sort_keys=True)), json.loads(attrs["parameters"])
     if ours != stored:
         diff = sorted(_differences(stored, ours))
         raise InputError(f"{path} belongs to a run with other parameters ({', '.join(diff[:4])}"

@@ -30,7 +30,7 @@ import numpy as np
 
 from . import __version__
 from .cpu import set_threads
-from .errors import InputError
+from .errors import InputError, VelspecError
 from .interval import deepest, depth_fields
 from .io.hdf5 import ResultWriter, partial_path
 from .io.picks_csv import read_functions
@@ -168,6 +168,13 @@ def run_to_file(line: str | Path, out: str | Path, params=None, *, resume: bool 
             _stream(segy, params, run, positions, hood, progress, workers, scheduler, line)
             summary = _line_pass(run, segy, params, positions, hood, plan_attrs, identity, t0, velocities, edits, out,
                                  force)
+        except VelspecError:
+            # a user error of a fresh run leaves nothing behind; an interruption or a crash keeps
+            # the partial file to resume from, and so does any failure of a resumed run
+            run.close()
+            if not resume:
+                partial.unlink(missing_ok=True)
+            raise
         finally:
             run.close()
     partial.unlink(missing_ok=True)
