@@ -199,7 +199,9 @@ def test_result_attributes_say_what_was_run(line, tmp_path):
 _PEAK = """
 import sys, tracemalloc
 import velspec
+import velspec.streaming
 from velspec.streaming import run_to_file
+velspec.streaming.LINE_BLOCK = 16   # windows of the line pass smaller than both lines
 velspec.run_line(sys.argv[1], {"scan": {"nvel": 30}, "keep_spectra": 0})   # compile and warm up outside the count
 tracemalloc.start()
 run_to_file(sys.argv[1], sys.argv[2], {"scan": {"nvel": 30}, "keep_spectra": 0, "threads": 1})

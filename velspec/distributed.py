@@ -35,11 +35,11 @@ def _client(workers: int, scheduler: str | None):
         raise InputError("--workers and --scheduler need dask.distributed: pip install 'velspec[cluster]'") from None
     if scheduler:
         try:
-            return Client(scheduler, timeout="20s"), None
-        except (OSError, TimeoutError) as exc:
+            return Client(scheduler, timeout="10s"), None
+        except Exception as exc:  # refused, timed out, bad address: dask raises several kinds
             raise InputError(f"cannot reach the Dask scheduler at {scheduler} ({exc}); start it "
                              "(dask scheduler) or check the address") from None
-    cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None,
+    cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0",
                            host="127.0.0.1")
     return Client(cluster), cluster
 
