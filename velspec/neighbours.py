@@ -14,6 +14,8 @@ must have scanned and how far back it may forget.
   a whole number, so the triangle weights of the smoothing stay ``radius + 1 - d``.
 
 A 2D line is the grid with one inline, so both give the same neighbours there (tested).
+:meth:`first` and :meth:`last` are monotone in ``i``, so the halo of a span of items lies
+between the bounds of its first and last item.
 """
 
 from __future__ import annotations
@@ -70,7 +72,7 @@ class GridNeighbours:
             self.inline = self.inline - self.inline.min()
             self.crossline = self.crossline - self.crossline.min()
         self._width = int(self.crossline.max()) + 1 if self.n else 1
-        self._keys: dict[int, np.ndarray] = {}
+        self._keys: dict = {}
         keys = self._key_array(0)
         if self.n > 1 and not np.all(np.diff(keys) > 0):
             raise ValueError("grid items must be sorted by inline, then crossline, each bin once")
@@ -98,18 +100,32 @@ class GridNeighbours:
         dist = np.maximum(np.abs(self.inline[j] - il), np.abs(self.crossline[j] - xl))
         return j, dist
 
+    def _bounds(self, radius: int) -> tuple[np.ndarray, np.ndarray]:
+        # exact lowest and highest neighbour of every item, then made monotone (a running min
+        # from the end, a running max from the start) so that a span of items has its halo
+        # between the bounds of its ends
+        if ("bounds", radius) not in self._keys:
+            keys = self._key_array(radius)
+            lo = np.arange(self.n, dtype=np.int64)
+            hi = lo.copy()
+            for d in range(-radius, radius + 1):
+                a = np.searchsorted(keys, self._key(self.inline + d, self.crossline - radius, radius), side="left")
+                b = np.searchsorted(keys, self._key(self.inline + d, self.crossline + radius, radius), side="right")
+                some = b > a
+                lo[some] = np.minimum(lo[some], a[some])
+                hi[some] = np.maximum(hi[some], b[some] - 1)
+            self._keys[("bounds", radius)] = (np.minimum.accumulate(lo[::-1])[::-1], np.maximum.accumulate(hi))
+        return self._keys[("bounds", radius)]
+
     def first(self, i: int, radius: int) -> int:
-        """Lowest item number within ``radius`` of ``i`` (a lower bound: the first item at or
-        after the bin ``radius`` steps back in both directions)."""
-        keys = self._key_array(radius)
-        return int(np.searchsorted(keys, self._key(int(self.inline[i]) - radius,
-                                                   int(self.crossline[i]) - radius, radius), side="left"))
+        """A lower bound of the item numbers within ``radius`` of ``i`` and of every later item
+        (exact on a single inline)."""
+        return int(self._bounds(radius)[0][i])
 
     def last(self, i: int, radius: int) -> int:
-        """Highest item number within ``radius`` of ``i`` (an upper bound, as :meth:`first`)."""
-        keys = self._key_array(radius)
-        return int(np.searchsorted(keys, self._key(int(self.inline[i]) + radius,
-                                                   int(self.crossline[i]) + radius, radius), side="right")) - 1
+        """An upper bound of the item numbers within ``radius`` of ``i`` and of every earlier item
+        (exact on a single inline)."""
+        return int(self._bounds(radius)[1][i])
 
 
 def subset(hood, items: np.ndarray):

@@ -24,11 +24,12 @@ from . import __version__
 from .condition import ConditionReport, condition_gather, supergather
 from .cpu import set_threads
 from .errors import InputError
+from .grid import analysis_plan, near_rows_of, result_neighbours
 from .io.hdf5 import read_result
 from .io.picks_csv import read_functions
 from .io.segy import Gather, SegyLine, open_line
 from .linepass import LineFields, line_pass
-from .neighbours import LineNeighbours
+from .neighbours import LineNeighbours, subset
 from .params import RunParams, load_toml
 from .pick import pick_panel
 from .pick.guide import GuideFor, guide_source
@@ -303,11 +304,12 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
                 raise InputError(f"{params.pick.edits}: picks for CMP(s) the line does not have: "
                                  f"{', '.join(map(str, unknown[:5]))}{' ...' if len(unknown) > 5 else ''}")
         guide_for = guide_source(params, segy.times)
+        positions, hood, plan = analysis_plan(segy, params)
         sea_floor, water_velocity = sea_floor_pass(segy, params)
-        update, close = progress(segy.ncmp) if progress else (None, None)
+        update, close = progress(len(positions)) if progress else (None, None)
         try:
-            outcomes = list(stream_pass(segy, params, progress=update, guide_for=guide_for,
-                                        sea_floor=np.stack([sea_floor, water_velocity], axis=1)))
+            outcomes = list(stream_pass(segy, params, positions, progress=update, guide_for=guide_for,
+                                        sea_floor=np.stack([sea_floor, water_velocity], axis=1), hood=hood))
         finally:
             if close is not None:
                 close()
@@ -326,8 +328,11 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
     if nan_traces:
         warnings_out.append(f"{nan_traces} trace(s) with NaN or infinite samples were left out")
     rows = np.array([o.position for o in analysed], dtype=np.int64)
+    items = np.array([i for i, o in enumerate(outcomes) if o.picks is not None], dtype=np.int64)
     result = analyse_outcomes(analysed, t0, ix.cmp[rows], ix.cmp_x[rows], ix.cmp_y[rows], sea_floor[rows],
-                              water_velocity[rows], params, edits)
+                              water_velocity[rows], params, edits, near_rows=near_rows_of(subset(hood, items)))
+    if "inline" in plan:
+        result = result.replace(inline=plan["inline"][items], crossline=plan["crossline"][items])
     kept = [o for o in analysed if o.panel is not None]
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
     spectra = Spectra(cmp=np.array([o.cmp for o in kept], dtype=np.int64), velocity=velocities.astype(np.float64),
@@ -335,6 +340,8 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
                                  else np.zeros((0, velocities.size, t0.size), dtype=np.float32)))
     attrs = {"velspec_version": __version__, "created": now_utc(), "parameters": params.to_dict(),
              "input": identity, "skipped_cmps": len(skipped), "nan_traces": nan_traces}
+    if "grid" in plan:
+        attrs["grid"] = plan["grid"]
     qc = dict(result.qc, **skipped_qc(skipped))
     return result.replace(qc=qc, spectra=spectra, attrs=attrs, warnings=warnings_out)
 
@@ -431,7 +438,7 @@ def revise_result(result: LineAnalysis | str | Path, edits: dict | str | Path | 
         edits = read_functions(edits, need_cmp=True)
     run_params = run_params.with_overrides(pick__edits=edit_file, pick__edit_mode=edit_mode).validate()
     picks, fields = line_pass(result.t0, result.cmp, result.picks, np.asarray(result.qc["path"], np.float32),
-                              run_params, edits=edits or None)
+                              run_params, edits=edits or None, near_rows=near_rows_of(result_neighbours(result)))
     attrs = {k: v for k, v in result.attrs.items() if k != "format_version"}
     attrs.update(created=now_utc(), parameters=run_params.to_dict(), velspec_version=__version__,
                  revised_from=source, edited_cmps=int(fields.edited_cmps))
@@ -439,7 +446,9 @@ def revise_result(result: LineAnalysis | str | Path, edits: dict | str | Path | 
                                     "path", "water_bottom",
                                     "water_velocity",
                                     "skipped_cmp", "skipped_nan_traces") if k in result.qc}
-    return _assemble(result.t0, result.cmp, result.cmp_x, result.cmp_y, picks, fields, qc, result.spectra, attrs, [])
+    revised = _assemble(result.t0, result.cmp, result.cmp_x, result.cmp_y, picks, fields, qc, result.spectra, attrs,
+                        [])
+    return revised.replace(inline=result.inline, crossline=result.crossline)
 
 
 __all__ = ["run_line", "revise_result", "stream_pass", "scan_one", "pick_one", "CmpOutcome", "as_params",

@@ -31,6 +31,7 @@ import numpy as np
 from . import __version__
 from .cpu import set_threads
 from .errors import InputError, VelspecError
+from .grid import analysis_plan
 from .interval import deepest, depth_fields
 from .io.hdf5 import ResultWriter, partial_path
 from .io.picks_csv import read_functions
@@ -86,17 +87,6 @@ def fields_partial_path(out: str | Path) -> Path:
     return out.with_name(out.name + ".fields.partial")
 
 
-def analysis_plan(segy, params):
-    """The CMPs analysed (positions in the line's CMP index) and their neighbourhood: every CMP
-    along the line for a 2D line; the chosen bins of the grid for 3D-binned data
-    (:func:`velspec.grid.grid_plan`). Returns (positions, hood, attrs to store)."""
-    if getattr(params, "grid", None) is not None and params.grid.binning == "3d":
-        from .grid import grid_plan
-
-        return grid_plan(segy, params.grid)
-    return np.arange(segy.ncmp, dtype=np.int64), LineNeighbours(segy.ncmp), {}
-
-
 def run_to_file(line: str | Path, out: str | Path, params=None, *, resume: bool = False, force: bool = False,
                 progress: Progress | None = None, workers: int = 0, scheduler: str | None = None) -> RunSummary:
     """Run the whole analysis on a line and write the result file, streaming (``velspec run``).
@@ -104,7 +94,7 @@ def run_to_file(line: str | Path, out: str | Path, params=None, *, resume: bool 
     Parameters
     ----------
     line : str or Path
-        Prestack SEG-Y line (2D, or 3D-binned with ``[grid] binning = "3d"``).
+        Prestack SEG-Y line (2D, or 3D-binned with ``read.geometry = "3d"``).
     out : str or Path
         Result file to write (HDF5, the layout of :func:`velspec.write_result`).
     params : RunParams, dict, str or Path, optional
@@ -313,4 +303,4 @@ def _line_pass(run: PartialRun, segy, params, positions, hood, plan_attrs, ident
     return RunSummary(path=out, cmps=nrows, picks=npick, used=used, resumed_blocks=0, blocks=run.nblocks)
 
 
-__all__ = ["run_to_file", "RunSummary", "analysis_plan", "fields_partial_path", "LINE_BLOCK"]
+__all__ = ["run_to_file", "RunSummary", "fields_partial_path", "LINE_BLOCK"]
