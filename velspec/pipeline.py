@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import dataclasses
 from collections.abc import Callable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -204,18 +205,30 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
             del pending[j]
 
     conditioned = _Conditioned(line, params)
-    for start in range(scan_lo, scan_hi, params.block):
-        block = range(start, min(start + params.block, scan_hi))
-        for i in block:
-            k = int(positions[i])
-            gather, report = conditioned.gather(k)
-            outcome, panel, best = scan_one(gather, times, line.dt, params, velocities)
-            outcome.position = k
-            outcome.clipped, outcome.noisy = report.traces_clipped, report.noisy
-            pending[i] = _Scanned(k, outcome, gather, panel, best)
-        yield from ready(float(block[-1]))
-        if progress is not None:
-            progress(sum(1 for i in block if lo <= i < hi))
+    starts = range(scan_lo, scan_hi, params.block)
+
+    def read_block(start: int) -> list:
+        # every gather is read and conditioned on the reader thread, in order: one user of `conditioned`
+        return [conditioned.gather(int(positions[i])) for i in range(start, min(start + params.block, scan_hi))]
+
+    # a reader thread prefetches the next block of gathers while this one is scanned (the
+    # conditioning kernels are serial: a parallel one here would meet the scan's thread pool)
+    with ThreadPoolExecutor(max_workers=1) as reader:
+        coming = reader.submit(read_block, starts[0]) if len(starts) else None
+        for n, start in enumerate(starts):
+            block = range(start, min(start + params.block, scan_hi))
+            gathers = coming.result()
+            coming = reader.submit(read_block, starts[n + 1]) if n + 1 < len(starts) else None
+            for i, (gather, report) in zip(block, gathers):
+                k = int(positions[i])
+                outcome, panel, best = scan_one(gather, times, line.dt, params, velocities)
+                outcome.position = k
+                outcome.clipped, outcome.noisy = report.traces_clipped, report.noisy
+                pending[i] = _Scanned(k, outcome, gather, panel, best)
+            del gathers
+            yield from ready(float(block[-1]))
+            if progress is not None:
+                progress(sum(1 for i in block if lo <= i < hi))
     yield from ready(np.inf)
 
 
