@@ -3,8 +3,9 @@
 Generates shot-ordered lines of several lengths (96-trace CMPs, 1500 samples at 4 ms), runs
 ``velspec run`` on each in a fresh process and reads that process's peak resident set size
 (``resource.getrusage(RUSAGE_CHILDREN).ru_maxrss`` after it exits, one child at a time). Prints
-a Markdown table: line size, peak RSS, and the size of the output fields the run must hold
-(ncmp x nt float32 arrays), so that growth beyond the fields would show.
+a Markdown table: line size, peak RSS, and the size of the output fields (ncmp x nt float32
+arrays) that a run holding them would need: ``velspec run`` streams them to disk, so its peak
+should not follow that column.
 
 usage: python benchmarks/memory.py [--cmps 50 200 800]
 """
@@ -44,7 +45,7 @@ def main() -> int:
             fields = n * 1500 * 4 * FIELDS_PER_CMP
             rows.append((n, os.path.getsize(line), rss, fields))
             line.unlink()
-    print("| CMPs | line size | peak RSS of `velspec run` | output fields held (approx.) |")
+    print("| CMPs | line size | peak RSS of `velspec run` | output fields if held (approx.) |")
     print("|---|---|---|---|")
     for n, size, rss, fields in rows:
         print(f"| {n} | {size / 2**20:.0f} MiB | {rss / 2**20:.0f} MiB | {fields / 2**20:.0f} MiB |")

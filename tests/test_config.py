@@ -39,7 +39,7 @@ def test_every_kind_of_value_round_trips(tmp_path):
     assert back.pick.water_bottom == 0.1 + 0.2   # the shortest repr reads back the same float
     # tomllib, the reference reader, sees the sections of the README's layout
     data = tomllib.loads(to_toml(params))
-    assert set(data) == {"threads", "block", "keep_spectra", "read", "condition", "scan", "pick", "interval"}
+    assert set(data) == {"threads", "block", "keep_spectra", "read", "condition", "scan", "pick", "interval", "grid"}
     assert data["read"]["headers"]["cdp"] == 21 and data["pick"]["bounds"][1] == [1.5, 2000.0, 4000.0]
 
 

@@ -485,12 +485,12 @@ def test_a_line_larger_than_the_headroom_runs_under_a_memory_limit(tmp_path):
 
 
 def test_running_out_of_memory_is_one_error_line_and_no_output(base, tmp_path, monkeypatch):
-    import velspec.pipeline
+    import velspec.streaming
 
     def exhausted(*args, **kwargs):
         raise MemoryError()
 
-    monkeypatch.setattr(velspec.pipeline, "run_line", exhausted)
+    monkeypatch.setattr(velspec.streaming, "run_to_file", exhausted)
     out = tmp_path / "r.h5"
     status, _, err = run_cli("run", base["line"], "--out", out, "--quiet")
     check_outcome(status, err, tmp_path, out)

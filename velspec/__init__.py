@@ -4,7 +4,8 @@ Every command is one call here::
 
     import velspec
 
-    result = velspec.run_line("line.sgy", {"scan": {"nvel": 160}})   # velspec run
+    result = velspec.run_line("line.sgy", {"scan": {"nvel": 160}})   # the whole result in memory
+    velspec.run_to_file("line.sgy", "line.h5", {"scan": {"nvel": 160}})  # velspec run: streamed, resumable
     velspec.write_result("line.h5", result)
     velspec.write_picks("picks.csv", result)                         # velspec picks
     revised = velspec.revise_result("line.h5", edits="edits.csv")     # velspec revise
@@ -29,6 +30,8 @@ __version__ = "0.1.0"
 
 _PUBLIC = {
     "run_line": "velspec.pipeline",
+    "run_to_file": "velspec.streaming",
+    "RunSummary": "velspec.streaming",
     "revise_result": "velspec.pipeline",
     "read_result": "velspec.io.hdf5",
     "write_result": "velspec.io.hdf5",

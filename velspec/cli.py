@@ -76,6 +76,9 @@ def build_parser() -> argparse.ArgumentParser:
                              "velspec run line.sgy --out line.h5 --config deep.toml --vmax 7000 --threads 2",
                              "velspec run line.sgy --out line.h5 --guide regional",
                              "velspec run line.sgy --out line.h5 --picks edits.csv --edit-mode guide",
+                             "velspec run line.sgy --out line.h5 --resume    # finish an interrupted run",
+                             "velspec run line.sgy --out line.h5 --workers 2  # on a local Dask cluster",
+                             "velspec run /shared/line.sgy --out line.h5 --scheduler tcp://10.0.0.5:8786",
                              "velspec run --config deep.toml --nvel 200 --print-config > merged.toml",
                              "velspec run line.sgy --out again.h5 --config merged.toml"))
     run.add_argument("line", metavar="LINE.sgy", nargs="?", help="prestack 2D line, SEG-Y rev 1 or rev 2.0")
@@ -92,7 +95,16 @@ def build_parser() -> argparse.ArgumentParser:
     run.add_argument("--print-config", action="store_true",
                      help="print the effective parameters (defaults, --config and options merged) as TOML "
                           "to stdout and stop")
-    _work_options(run, force_help="overwrite an existing result")
+    run.add_argument("--resume", action="store_true",
+                     help="finish the interrupted run whose RESULT.h5.partial is beside --out, without redoing "
+                          "its finished CMP blocks")
+    cluster = run.add_mutually_exclusive_group()
+    cluster.add_argument("--workers", type=int, metavar="N",
+                         help="scan on a local Dask cluster of N worker processes (needs velspec[cluster])")
+    cluster.add_argument("--scheduler", metavar="ADDRESS",
+                         help="scan on a running dask.distributed cluster (tcp://HOST:PORT); its workers must "
+                              "read LINE.sgy at the same path")
+    _work_options(run, force_help="overwrite an existing result, or start again over an interrupted run")
 
     rev = sub.add_parser("revise", help="rerun the line pass from a result, with a person's picks",
                          formatter_class=_RAW,
@@ -265,7 +277,8 @@ def main(argv: list[str] | None = None) -> int:
         print(f"velspec: error: {exc}", file=sys.stderr)
         return EXIT_USAGE
     except KeyboardInterrupt:
-        print("velspec: error: interrupted; no output was written", file=sys.stderr)
+        print("velspec: error: interrupted; no output was written (a run can be finished with --resume)",
+              file=sys.stderr)
         return EXIT_USAGE
     except MemoryError:
         if debug:
@@ -313,8 +326,7 @@ def _progress(quiet: bool, label: str):
 
 
 def _cmd_run(args) -> int:
-    from .io.hdf5 import write_result
-    from .pipeline import run_line
+    from .streaming import run_to_file
 
     if args.print_config:
         from .config import to_toml
@@ -331,13 +343,18 @@ def _cmd_run(args) -> int:
         raise UsageError(f"{args.line}: no such file")
     if not Path(args.line).is_file():
         raise UsageError(f"{args.line} is not a file; give the SEG-Y file of the line")
-    result = run_line(args.line, _run_params(args), progress=_progress(args.quiet, "scanning"))
-    for message in result.warnings:
-        print(f"velspec: warning: {message}", file=sys.stderr)
-    write_result(out, result, force=args.force)
+    if args.workers is not None and not 1 <= args.workers <= 1024:
+        raise UsageError(f"--workers must be between 1 and 1024, got {args.workers}")
+    if args.scheduler is not None and "://" not in args.scheduler:
+        raise UsageError(f"--scheduler needs an address like tcp://HOST:PORT, got {args.scheduler!r}")
+    summary = run_to_file(args.line, out, _run_params(args), resume=args.resume, force=args.force,
+                          progress=_progress(args.quiet, "scanning"), workers=args.workers or 0,
+                          scheduler=args.scheduler)
     if not args.quiet:
-        print(f"velspec: wrote {out} ({len(result.cmp)} CMPs, {int(result.used.sum())} picks used "
-              f"of {result.picks.size})", file=sys.stderr)
+        again = (f"; {summary.resumed_blocks} of {summary.blocks} blocks were finished before"
+                 if args.resume else "")
+        print(f"velspec: wrote {out} ({summary.cmps} CMPs, {summary.used} picks used "
+              f"of {summary.picks}{again})", file=sys.stderr)
     return EXIT_OK
 
 

@@ -218,7 +218,16 @@ def gap_sigma(t0_axis: np.ndarray, pick_t0: np.ndarray, drift: float) -> np.ndar
     return drift * out
 
 
-def depth_fields(t0_axis: np.ndarray, vint: np.ndarray, dz: float) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def deepest(t0_axis: np.ndarray, vint: np.ndarray) -> np.ndarray:
+    """Depth (m) each CMP reaches at its last sample, as :func:`depth_fields` integrates it:
+    the depth axis of a line is ``np.arange(0, max + dz / 2, dz)`` over all its CMPs."""
+    t = np.asarray(t0_axis, dtype=np.float64)
+    dts = np.diff(np.concatenate(([0.0], t)))
+    return np.cumsum(0.5 * np.asarray(vint, dtype=np.float64) * dts[None, :], axis=1)[:, -1]
+
+
+def depth_fields(t0_axis: np.ndarray, vint: np.ndarray, dz: float,
+                 z: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Convert interval-velocity fields in time to depth.
 
     Depth below the datum is z(t) = integral of vint / 2 over two-way time from 0 (the first
@@ -232,6 +241,9 @@ def depth_fields(t0_axis: np.ndarray, vint: np.ndarray, dz: float) -> tuple[np.n
         Interval velocity in time, m/s.
     dz : float
         Depth step, m.
+    z : ndarray (nz,), optional
+        The depth axis, m, when the fields are converted a block of CMPs at a time (default:
+        from 0 in steps of ``dz`` to the deepest depth these CMPs reach, :func:`deepest`).
 
     Returns
     -------
@@ -247,8 +259,9 @@ def depth_fields(t0_axis: np.ndarray, vint: np.ndarray, dz: float) -> tuple[np.n
     ncmp, nt = v.shape
     dts = np.diff(np.concatenate(([0.0], t)))
     z_t = np.cumsum(0.5 * v * dts[None, :], axis=1)          # (ncmp, nt) depth at each sample
-    zmax = float(z_t[:, -1].max()) if ncmp else 0.0
-    z = np.arange(0.0, zmax + 0.5 * dz, dz)
+    if z is None:
+        zmax = float(z_t[:, -1].max()) if ncmp else 0.0
+        z = np.arange(0.0, zmax + 0.5 * dz, dz)
     t_of_z = np.empty((ncmp, z.size), dtype=np.float32)
     vint_z = np.empty((ncmp, z.size), dtype=np.float32)
     for c in range(ncmp):

@@ -18,7 +18,7 @@ from .errors import InputError
 from .flags import Flag, clear, used_mask
 from .interval import depth_fields, fields_from_picks
 from .params import RunParams
-from .regularised import depth_from_interval, regularised_dix
+from .regularised import regularised_dix, trend_knots
 from .result import empty_picks, sort_picks
 
 EDITED_SIGMA = 0.01    # uncertainty given to a person's pick, as a fraction of its velocity
@@ -133,7 +133,7 @@ def apply_edits(cmp: np.ndarray, picks: np.ndarray, edits: dict, mode: str, para
 
 
 def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrms: np.ndarray,
-                     params: RunParams) -> list[int]:
+                     params: RunParams, near_rows=None) -> list[int]:
     """Flag (in place) picks far from the running median of the stacking-velocity field.
 
     The median over +-``lateral_cmps`` CMPs at each t0 follows a step in velocity (a fault, a
@@ -143,6 +143,8 @@ def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrm
     theirs within :data:`SUPPORT` of ``min_separation``): an extrapolated field is no reference,
     and fewer than :data:`MIN_NEIGHBOURS` such neighbours leave the pick untested. A person's
     picks are never rejected. Returns the rows with a pick flagged.
+    ``near_rows(row, radius)`` gives the neighbouring rows on a grid of bins
+    (:mod:`velspec.neighbours`); default: the rows along the line.
     """
     pp = params.pick
     if pp.lateral_cmps == 0 or len(slices) < 3:
@@ -158,16 +160,17 @@ def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrm
             continue
         # the median over the neighbours' fields at this CMP's pick times only; the window
         # shrinks at the ends of the line rather than repeating the end CMP
-        lo = max(row - k, 0)
-        near = vrms[lo: row + k + 1]
+        near_idx = (np.arange(max(row - k, 0), min(row + k + 1, len(slices))) if near_rows is None
+                    else np.asarray(near_rows(row, k)))
+        near = vrms[near_idx]
         cols = np.clip(np.searchsorted(t0, p["t0"]), 0, t0.size - 1)
         if np.array_equal(t0[cols], p["t0"]):      # automatic picks sit on samples: no interpolation
             values = near[:, cols]
         else:
             values = np.stack([np.interp(p["t0"], t0, f) for f in near])
-        supported = np.stack([np.array([ut.size > 0 and np.min(np.abs(ut - t)) <= reach for t in p["t0"]])
-                              for ut in used_t[lo: row + k + 1]])
-        supported[row - lo] = False    # the CMP itself is no witness
+        supported = np.stack([np.array([used_t[j].size > 0 and np.min(np.abs(used_t[j] - t)) <= reach
+                                        for t in p["t0"]]) for j in near_idx])
+        supported[near_idx == row] = False    # the CMP itself is no witness
         enough = supported.sum(axis=0) >= MIN_NEIGHBOURS
         ref = np.zeros(p.size)
         if enough.any():
@@ -238,7 +241,7 @@ def _cmp_fields(t0: np.ndarray, p: np.ndarray, path: np.ndarray, params: RunPara
 
 
 def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndarray, params: RunParams,
-              edits: dict | None = None, cmp_x: np.ndarray | None = None) -> tuple[np.ndarray, LineFields]:
+              edits: dict | None = None, near_rows=None, depth: bool = True) -> tuple[np.ndarray, LineFields]:
     """Fields on every (CMP, t0) from the picks.
 
     Parameters
@@ -254,8 +257,12 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
     params : RunParams
     edits : dict, optional
         A person's picks ``{cmp: (t0, vrms)}``, applied in ``params.pick.edit_mode``.
-    cmp_x : float64 (ncmp,), optional
-        CMP positions along the line, m, for the regularised field's lateral smoothing.
+    near_rows : callable, optional
+        ``near_rows(row, radius)``: the lateral neighbours of a row on a grid of bins (see
+        :func:`lateral_outliers`); default along the line.
+    depth : bool
+        Compute the depth fields from the per-CMP interval velocity (default True; the run
+        makes them from the regularised field instead when it has one).
 
     Returns
     -------
@@ -302,31 +309,98 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
 
     for row in range(ncmp):
         fill(row)
-    for row in lateral_outliers(t0, picks, slices, vrms, params):   # judged on the first fields, then redone
+    for row in lateral_outliers(t0, picks, slices, vrms, params, near_rows):   # judged on the first fields, then redone
         fill(row)
-    reg_vint = reg_vrms = vavg_z = None
-    if params.interval.regularised:
-        use = used_mask(picks["flags"]) & (picks["t0"] > 0) & (picks["t0"] <= t0[-1])
-        row_of = np.concatenate([np.full(s.stop - s.start, r) for r, s in enumerate(slices)]).astype(np.int64)
-        if use.any():
-            x = None
-            if cmp_x is not None and np.all(np.diff(np.asarray(cmp_x, dtype=np.float64)) != 0):
-                x = np.asarray(cmp_x, dtype=np.float64)
-            reg = regularised_dix(t0, row_of[use], picks["t0"][use], picks["vrms"][use], picks["sigma"][use], ncmp,
-                                  params.interval, cmp_x=x)
-            picks["misfit"][use] = reg.misfit
-            reg_vint, reg_vrms = reg.vint, reg.vrms
-    if reg_vint is not None:
-        z, t_of_z, vint_z, vavg_z = depth_from_interval(t0, reg_vint, params.interval.dz)
-        t_of_z, vint_z, vavg_z = (a.astype(np.float32) for a in (t_of_z, vint_z, vavg_z))
-    else:
+    z = t_of_z = vint_z = None
+    if depth:
         z, t_of_z, vint_z = depth_fields(t0, vint, params.interval.dz)
     return picks, LineFields(vrms=vrms, vint=vint, vint_raw=vint_raw, vint_sigma=vint_sigma,
                              vrms_sigma=vrms_sigma, forced=forced,
                              forced_count=forced_count, no_picks=no_picks, quality=quality, eta=eta, z=z,
-                             depth_t0=t_of_z, depth_vint=vint_z, depth_vavg=vavg_z, regularised_vint=reg_vint,
-                             regularised_vrms=reg_vrms, edited_cmps=changed)
+                             depth_t0=t_of_z, depth_vint=vint_z, edited_cmps=changed)
 
 
-__all__ = ["line_pass", "LineFields", "apply_edits", "lateral_outliers", "cmp_quality", "cmp_slices",
+REG_WINDOW = 256   # CMPs whose regularised field one solve gives
+REG_HALO = 64      # CMPs either side of a window whose picks the solve sees as well
+
+
+def regularised_windows(nrows: int):
+    """The windows of the regularised field on a line of ``nrows`` analysed CMPs: ``(a, b, lo,
+    hi)``, the rows ``a..b-1`` kept from a solve over rows ``lo..hi-1`` (their halo).
+
+    The whole line as one problem would cost memory and time that grow faster than its length;
+    a window with a halo of :data:`REG_HALO` CMPs is the whole-line answer where the lateral
+    smoothing reaches less far than the halo. A run in memory, a streamed run and a revise all
+    take these windows, so they give the same bits.
+    """
+    for a in range(0, nrows, REG_WINDOW):
+        b = min(a + REG_WINDOW, nrows)
+        yield a, b, max(0, a - REG_HALO), min(nrows, b + REG_HALO)
+
+
+def regularisable(picks: np.ndarray, t0: np.ndarray) -> np.ndarray:
+    """The picks the regularised field uses: used, and inside the t0 axis."""
+    return used_mask(picks["flags"]) & (picks["t0"] > 0) & (picks["t0"] <= t0[-1])
+
+
+def line_trend(pick_t0: np.ndarray, pick_vrms: np.ndarray):
+    """The stacking-velocity trend of a whole line from its regularisable picks (None if none)."""
+    return trend_knots(pick_t0, pick_vrms) if np.size(pick_t0) else None
+
+
+def regularise_window(t0: np.ndarray, picks: np.ndarray, pick_rows: np.ndarray, nrows: int, params: RunParams,
+                      cmp_x: np.ndarray | None, inline: np.ndarray | None, trend):
+    """The regularised field of one window of rows from the picks of its rows.
+
+    Returns ``(vint, vrms, misfit)`` (misfit per pick of ``picks``, the given value where a pick
+    is not used), or None when the window has no usable pick (the caller keeps the per-CMP
+    fields there). On a grid of bins (``inline`` given) the lateral smoothing runs along each
+    inline and stops between inlines.
+    """
+    use = regularisable(picks, t0)
+    if not use.any() or trend is None:
+        return None
+    breaks = None if inline is None else np.diff(np.asarray(inline)) != 0
+    x = None
+    if cmp_x is not None:
+        d = np.diff(np.asarray(cmp_x, dtype=np.float64))
+        if np.all((d != 0) | (breaks if breaks is not None else False)):
+            x = np.asarray(cmp_x, dtype=np.float64)
+    reg = regularised_dix(t0, pick_rows[use].astype(np.int64), picks["t0"][use], picks["vrms"][use],
+                          picks["sigma"][use], nrows, params.interval, cmp_x=x, breaks=breaks, trend=trend)
+    misfit = picks["misfit"].copy()
+    misfit[use] = reg.misfit
+    return reg.vint, reg.vrms, misfit
+
+
+def regularise_line(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vint: np.ndarray, vrms: np.ndarray,
+                    params: RunParams, cmp_x: np.ndarray | None = None, inline: np.ndarray | None = None):
+    """The regularised field of a line held in memory, window by window (:func:`regularised_windows`).
+
+    Returns ``(reg_vint, reg_vrms, picks)``, the picks with their ``misfit`` set (a new table).
+    A window without a usable pick keeps the per-CMP ``vint`` and ``vrms``.
+    """
+    picks = picks.copy()
+    use = regularisable(picks, t0)
+    trend = line_trend(picks["t0"][use], picks["vrms"][use])
+    reg_vint, reg_vrms = vint.copy(), vrms.copy()
+    counts = np.array([s.stop - s.start for s in slices], dtype=np.int64)
+    for a, b, lo, hi in regularised_windows(len(slices)):
+        p0, p1 = slices[lo].start, slices[hi - 1].stop
+        rows = np.repeat(np.arange(hi - lo), counts[lo:hi])
+        got = regularise_window(t0, picks[p0:p1], rows, hi - lo, params,
+                                None if cmp_x is None else cmp_x[lo:hi], None if inline is None else inline[lo:hi],
+                                trend)
+        if got is None:
+            continue
+        w_vint, w_vrms, misfit = got
+        reg_vint[a:b], reg_vrms[a:b] = w_vint[a - lo: b - lo], w_vrms[a - lo: b - lo]
+        k0, k1 = slices[a].start, slices[b - 1].stop
+        picks["misfit"][k0:k1] = misfit[k0 - p0: k1 - p0]
+    return reg_vint, reg_vrms, picks
+
+
+__all__ = ["line_pass", "regularise_line", "regularise_window", "regularised_windows", "line_trend",
+           "regularisable", "REG_WINDOW", "REG_HALO", "LineFields",
+           "apply_edits", "lateral_outliers", "cmp_quality", "cmp_slices",
            "EDITED_SIGMA", "FALLBACK_SIGMA"]

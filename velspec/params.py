@@ -51,14 +51,59 @@ class ReadParams:
     bin_size : float
         CMP bin size in metres, used only when the CDP header is zero everywhere and CMPs must
         be binned from source-group midpoints. 0 means: estimate it from the midpoints.
+    geometry : str
+        ``"2d"`` (default): traces grouped into CMPs by the CDP header, along a line;
+        ``"3d"``: grouped into bins by the inline and crossline headers (``headers.inline``,
+        ``headers.crossline``), analysed on the grid ``[grid]`` chooses.
     """
 
     headers: HeaderBytes = field(default_factory=HeaderBytes)
     bin_size: float = 0.0
+    geometry: str = "2d"
 
     def validate(self) -> None:
         self.headers.validate()
         _check(self.bin_size >= 0 and math.isfinite(self.bin_size), "bin_size must be >= 0 m")
+        _check(self.geometry in ("2d", "3d"), f"geometry must be '2d' or '3d', got {self.geometry!r}")
+
+
+@dataclass(frozen=True)
+class GridParams:
+    """Which bins of 3D-binned data are analysed (``read.geometry = "3d"``), and the grid the
+    lateral steps work on.
+
+    Attributes
+    ----------
+    inline_step, crossline_step : int
+        Analyse every n-th inline and crossline, counted from the first of each in the data
+        (defaults 1: every bin). They are also the unit of the lateral radii: the neighbours
+        of an analysed bin are the analysed bins within ``pick.smooth_cmps`` (panel smoothing)
+        or ``pick.lateral_cmps`` (lateral outliers) steps of this grid, in inline and in
+        crossline (a square of ``2 r + 1`` by ``2 r + 1``).
+    bins : tuple of (inline, crossline) rows
+        Analyse only these bins (empty: the grid of the steps). Their grid positions are
+        still counted in steps of ``inline_step`` and ``crossline_step``.
+    """
+
+    inline_step: int = 1
+    crossline_step: int = 1
+    bins: tuple = ()
+
+    def __post_init__(self):
+        if not isinstance(self.bins, tuple) or any(not isinstance(row, tuple) for row in self.bins):
+            try:
+                rows = tuple(tuple(int(x) for x in row) for row in self.bins)
+            except (TypeError, ValueError):
+                raise ParameterError("grid.bins must be rows of two whole numbers: [inline, crossline]") from None
+            object.__setattr__(self, "bins", rows)
+
+    def validate(self) -> None:
+        for name in ("inline_step", "crossline_step"):
+            value = getattr(self, name)
+            _check(isinstance(value, int) and value >= 1, f"grid.{name} must be a whole number >= 1, got {value!r}")
+        _check(all(len(row) == 2 for row in self.bins), "grid.bins must be rows of two whole numbers: "
+                                                        "[inline, crossline]")
+        _check(len(set(self.bins)) == len(self.bins), "grid.bins names a bin twice")
 
 
 @dataclass(frozen=True)
@@ -645,6 +690,7 @@ class RunParams:
     pick: PickParams = field(default_factory=PickParams)
     interval: IntervalParams = field(default_factory=IntervalParams)
     condition: ConditionParams = field(default_factory=ConditionParams)
+    grid: GridParams = field(default_factory=GridParams)
     threads: int = 0
     block: int = 16
     keep_spectra: int = 5
@@ -655,6 +701,12 @@ class RunParams:
         self.pick.validate()
         self.interval.validate()
         self.condition.validate()
+        self.grid.validate()
+        _check(self.read.geometry == "2d" or self.condition.supergather_cmps == 1,
+               "supergathers (condition.supergather_cmps > 1) are made along a 2D line only; set it to 1 "
+               "for 3D-binned data (read.geometry = '3d')")
+        _check(self.read.geometry == "3d" or self.grid == GridParams(),
+               "[grid] chooses bins of 3D-binned data; set read.geometry = '3d' or leave [grid] out")
         _check(isinstance(self.threads, int) and self.threads >= 0, "threads must be an integer >= 0")
         _check(isinstance(self.block, int) and self.block >= 1, "block must be an integer >= 1")
         _check(isinstance(self.keep_spectra, int) and self.keep_spectra >= 0, "keep_spectra must be >= 0")
@@ -671,7 +723,7 @@ class RunParams:
         """Build from a nested mapping (TOML or JSON); unknown keys are errors, not ignored."""
         data = dict(data)
         stages = {"read": ReadParams, "scan": ScanParams, "pick": PickParams, "interval": IntervalParams,
-                  "condition": ConditionParams}
+                  "condition": ConditionParams, "grid": GridParams}
         kwargs = {}
         for name, kind in stages.items():
             section = dict(_table(data.pop(name, {}) or {}, name))
@@ -760,7 +812,7 @@ def _table(value, where: str) -> dict:
 def _home_of(key: str) -> str:
     """The section that has a parameter named ``key``, for a key put in the wrong one."""
     sections = {"read": ReadParams, "read.headers": HeaderBytes, "scan": ScanParams, "pick": PickParams,
-                "interval": IntervalParams, "top level": RunParams}
+                "interval": IntervalParams, "grid": GridParams, "top level": RunParams}
     for where, kind in sections.items():
         if key in {f.name for f in dataclasses.fields(kind)}:
             return where

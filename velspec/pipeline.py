@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import dataclasses
 from collections.abc import Callable, Iterator
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -24,13 +25,16 @@ from . import __version__
 from .condition import ConditionReport, condition_gather, supergather
 from .cpu import host, set_threads
 from .errors import InputError
+from .grid import analysis_plan, near_rows_of, result_neighbours
 from .io.hdf5 import read_result
 from .io.picks_csv import read_functions
 from .io.segy import Gather, SegyLine, open_line
-from .linepass import LineFields, line_pass
+from .linepass import LineFields, cmp_slices, line_pass, regularise_line
+from .neighbours import LineNeighbours, subset
 from .params import RunParams, load_toml
 from .pick import pick_panel
 from .pick.guide import GuideFor, guide_source
+from .regularised import depth_from_interval
 from .result import DepthFields, LineAnalysis, RegularisedField, Spectra, now_utc
 from .scan import scan_gather, velocity_axis
 from .seafloor import NEAR_TRACES, along_line, water_bottom_time
@@ -78,7 +82,7 @@ class _Scanned:
 
     position: int
     outcome: CmpOutcome
-    gather: Gather
+    gather: Gather | None   # None once picked
     panel: np.ndarray | None = None
     best_eta: np.ndarray | None = None
 
@@ -153,57 +157,82 @@ def sea_floor_pass(line: SegyLine, params: RunParams, most: int = 2000,
 
 def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None = None,
                 progress: Callable[[int], None] | None = None,
-                guide_for: GuideFor | None = None, sea_floor: np.ndarray | None = None) -> Iterator[CmpOutcome]:
-    """Yield one :class:`CmpOutcome` per CMP, reading ``params.block`` gathers at a time.
+                guide_for: GuideFor | None = None, sea_floor: np.ndarray | None = None, *,
+                hood=None, span: tuple[int, int] | None = None) -> Iterator[CmpOutcome]:
+    """Yield one :class:`CmpOutcome` per analysed CMP, reading ``params.block`` gathers at a time.
 
     A CMP is picked once the panels of its neighbours within ``params.pick.smooth_cmps`` are
     scanned, so at most one block plus that many panels on each side are held at a time.
     ``sea_floor`` (ncmp, 2) holds the sea-floor time (s) and water velocity (m/s) of every CMP of
     the line (NaN where none).
+
+    ``positions`` are the line positions analysed (default: every CMP), item ``i`` of the
+    analysis being CMP ``positions[i]``; ``hood`` says which items are neighbours
+    (:mod:`velspec.neighbours`; default: along the line). With ``span = (lo, hi)`` only items
+    ``lo..hi-1`` are picked and yielded, and the halo of neighbours their smoothing needs is
+    scanned around them: a block of a resumed or distributed run gives the same bits as the
+    whole line in one pass.
     """
     positions = np.arange(line.ncmp) if positions is None else np.asarray(positions)
+    hood = hood if hood is not None else LineNeighbours(len(positions))
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
-    keep = set(spectra_positions(line.ncmp, params.keep_spectra).tolist())
+    keep = set(spectra_positions(len(positions), params.keep_spectra).tolist())
     times = line.times
     half = params.pick.smooth_cmps
     guide_for = guide_for or (lambda cmp: None)
-    pending: list[_Scanned] = []   # scanned, in position order; the first unpicked at index `nxt`
-    nxt = 0
+    lo, hi = (0, len(positions)) if span is None else (int(span[0]), int(span[1]))
+    if hi <= lo:
+        return
+    scan_lo, scan_hi = hood.first(lo, half), hood.last(hi - 1, half) + 1
+    pending: dict[int, _Scanned] = {}   # scanned items by number; those below `nxt` are picked
+    nxt = lo
 
     def ready(upto: float):
-        nonlocal nxt, pending
-        while nxt < len(pending) and pending[nxt].position + half <= upto:
+        nonlocal nxt
+        while nxt < hi and nxt in pending and hood.last(nxt, half) <= upto:
             item = pending[nxt]
             if item.panel is not None:
-                panel = smoothed_panel([s.panel for s in pending], [s.position for s in pending], nxt, half,
-                                       velocities=velocities, step_scale=params.pick.smooth_step, dt=line.dt)
+                near, dist = hood.near(nxt, half)
+                panel = smoothed_panel([pending[j].panel for j in near], dist, int(np.flatnonzero(near == nxt)[0]),
+                                       half, velocities=velocities, step_scale=params.pick.smooth_step, dt=line.dt)
                 pick_one(item.outcome, item.gather, panel, item.best_eta, times, params, velocities,
                          guide_for(item.outcome.cmp),
                          None if sea_floor is None else tuple(map(float, sea_floor[item.position])))
-                if int(item.position) in keep:
+                if nxt in keep:
                     item.outcome.panel = panel
+            item.gather = None      # picked: only its panel may still serve the neighbours' smoothing
             nxt += 1
             yield item.outcome
-        # forget what no later CMP needs: panels more than `half` positions behind the next one
-        first_needed = pending[nxt].position - half if nxt < len(pending) else np.inf
-        drop = 0
-        while drop < nxt and pending[drop].position < first_needed:
-            drop += 1
-        pending = pending[drop:]
-        nxt -= drop
+        # forget what no later CMP needs: panels before the first neighbour of the next one
+        first_needed = hood.first(nxt, half) if nxt < hi else np.inf
+        for j in [j for j in pending if j < first_needed]:
+            del pending[j]
 
     conditioned = _Conditioned(line, params, None if sea_floor is None else sea_floor[:, 0])
-    for start in range(0, len(positions), params.block):
-        block = positions[start: start + params.block]
-        for k in block:
-            gather, report = conditioned.gather(int(k))
-            outcome, panel, best = scan_one(gather, times, line.dt, params, velocities)
-            outcome.position = int(k)
-            outcome.clipped, outcome.noisy = report.traces_clipped, report.noisy
-            pending.append(_Scanned(int(k), outcome, gather, panel, best))
-        yield from ready(float(block[-1]))
-        if progress is not None:
-            progress(len(block))
+    starts = range(scan_lo, scan_hi, params.block)
+
+    def read_block(start: int) -> list:
+        # every gather is read and conditioned on the reader thread, in order: one user of `conditioned`
+        return [conditioned.gather(int(positions[i])) for i in range(start, min(start + params.block, scan_hi))]
+
+    # a reader thread prefetches the next block of gathers while this one is scanned (the
+    # conditioning kernels are serial: a parallel one here would meet the scan's thread pool)
+    with ThreadPoolExecutor(max_workers=1) as reader:
+        coming = reader.submit(read_block, starts[0]) if len(starts) else None
+        for n, start in enumerate(starts):
+            block = range(start, min(start + params.block, scan_hi))
+            gathers = coming.result()
+            coming = reader.submit(read_block, starts[n + 1]) if n + 1 < len(starts) else None
+            for i, (gather, report) in zip(block, gathers):
+                k = int(positions[i])
+                outcome, panel, best = scan_one(gather, times, line.dt, params, velocities)
+                outcome.position = k
+                outcome.clipped, outcome.noisy = report.traces_clipped, report.noisy
+                pending[i] = _Scanned(k, outcome, gather, panel, best)
+            del gathers
+            yield from ready(float(block[-1]))
+            if progress is not None:
+                progress(sum(1 for i in block if lo <= i < hi))
     yield from ready(np.inf)
 
 
@@ -297,11 +326,12 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
                 raise InputError(f"{params.pick.edits}: picks for CMP(s) the line does not have: "
                                  f"{', '.join(map(str, unknown[:5]))}{' ...' if len(unknown) > 5 else ''}")
         guide_for = guide_source(params, segy.times)
+        positions, hood, plan = analysis_plan(segy, params)
         sea_floor, water_velocity = sea_floor_pass(segy, params)
-        update, close = progress(segy.ncmp) if progress else (None, None)
+        update, close = progress(len(positions)) if progress else (None, None)
         try:
-            outcomes = list(stream_pass(segy, params, progress=update, guide_for=guide_for,
-                                        sea_floor=np.stack([sea_floor, water_velocity], axis=1)))
+            outcomes = list(stream_pass(segy, params, positions, progress=update, guide_for=guide_for,
+                                        sea_floor=np.stack([sea_floor, water_velocity], axis=1), hood=hood))
         finally:
             if close is not None:
                 close()
@@ -320,30 +350,80 @@ def run_line(line: str | Path, params: RunParams | dict | str | Path | None = No
     if nan_traces:
         warnings_out.append(f"{nan_traces} trace(s) with NaN or infinite samples were left out")
     rows = np.array([o.position for o in analysed], dtype=np.int64)
-    cmp = ix.cmp[rows]
-    picks = np.concatenate([o.picks for o in analysed])
-    paths = np.stack([o.path for o in analysed]).astype(np.float32)
-    # In guide mode the edits already steered the picking; the line pass then only replaces.
-    line_edits = edits if params.pick.edit_mode == "replace" else None
-    picks, fields = line_pass(t0, cmp, picks, paths, params, edits=line_edits, cmp_x=ix.cmp_x[rows])
+    items = np.array([i for i, o in enumerate(outcomes) if o.picks is not None], dtype=np.int64)
+    result = analyse_outcomes(analysed, t0, ix.cmp[rows], ix.cmp_x[rows], ix.cmp_y[rows], sea_floor[rows],
+                              water_velocity[rows], params, edits, near_rows=near_rows_of(subset(hood, items)))
+    if "inline" in plan:
+        result = result.replace(inline=plan["inline"][items], crossline=plan["crossline"][items])
+    result = regularise_result(result, params)
     kept = [o for o in analysed if o.panel is not None]
     velocities = velocity_axis(params.scan.vmin, params.scan.vmax, params.scan.nvel, params.scan.axis)
     spectra = Spectra(cmp=np.array([o.cmp for o in kept], dtype=np.int64), velocity=velocities.astype(np.float64),
                       coherence=(np.stack([o.panel for o in kept]) if kept
                                  else np.zeros((0, velocities.size, t0.size), dtype=np.float32)))
     attrs = {"velspec_version": __version__, "created": now_utc(), "parameters": params.to_dict(),
-             "input": identity, "skipped_cmps": len(skipped), "nan_traces": nan_traces, "machine": host()}
+             "input": identity, "skipped_cmps": len(skipped), "nan_traces": nan_traces,
+             "machine": host()}
+    if "grid" in plan:
+        attrs["grid"] = plan["grid"]
+    qc = dict(result.qc, **skipped_qc(skipped))
+    return result.replace(qc=qc, spectra=spectra, attrs=attrs, warnings=warnings_out)
+
+
+def regularise_result(result: LineAnalysis, params: RunParams) -> LineAnalysis:
+    """The result with its regularised interval field, the picks' misfit to it and the depth
+    fields from it, when ``params.interval.regularised`` (else as given).
+
+    Window by window along the line (:func:`velspec.linepass.regularised_windows`), as a
+    streamed run does, so the two give the same bits.
+    """
+    if not params.interval.regularised:
+        return result
+    slices = cmp_slices(result.cmp, result.picks)
+    reg_vint, reg_vrms, picks = regularise_line(result.t0, result.picks, slices, result.vint, result.vrms, params,
+                                                cmp_x=result.cmp_x, inline=result.inline)
+    z, t_of_z, vint_z, vavg_z = depth_from_interval(result.t0, reg_vint, params.interval.dz)
+    return result.replace(picks=picks, regularised=RegularisedField(vint=reg_vint, vrms=reg_vrms),
+                          depth=DepthFields(z=z, t0=t_of_z.astype(np.float32), vint=vint_z.astype(np.float32),
+                                            vavg=vavg_z.astype(np.float32)))
+
+
+def skipped_qc(skipped: list[CmpOutcome]) -> dict:
+    """The ``/qc`` arrays of the CMPs left out (fewer than ``MIN_LIVE`` live traces)."""
+    return {"skipped_cmp": np.array([o.cmp for o in skipped], dtype=np.int64),
+            "skipped_nan_traces": np.array([o.dropped_nan for o in skipped], dtype=np.int32)}
+
+
+def analyse_outcomes(analysed: list[CmpOutcome], t0: np.ndarray, cmp: np.ndarray, cmp_x: np.ndarray,
+                     cmp_y: np.ndarray, water_bottom: np.ndarray, water_velocity: np.ndarray, params: RunParams,
+                     edits: dict | None = None, near_rows=None) -> LineAnalysis:
+    """The line pass over the outcomes of consecutive analysed CMPs (the whole line, or a window
+    of it): fields, the line pass's flags and the per-CMP ``/qc`` arrays.
+
+    ``cmp``, ``cmp_x``, ``cmp_y``, ``water_bottom`` (s) and ``water_velocity`` (m/s) hold one value
+    per outcome. ``edits`` are a person's picks (``{cmp: (t0, vrms)}``; those of other CMPs are
+    ignored); ``near_rows(row)`` gives the rows that are lateral neighbours of a row (default:
+    along the line). The result has no spectra, no line-wide QC and no provenance.
+    """
+    picks = np.concatenate([o.picks for o in analysed])
+    paths = np.stack([o.path for o in analysed]).astype(np.float32)
+    # In guide mode the edits already steered the picking; the line pass then only replaces.
+    line_edits = edits if params.pick.edit_mode == "replace" else None
+    if line_edits:
+        have = set(int(x) for x in cmp)
+        line_edits = {c: f for c, f in line_edits.items() if c in have} or None
+    extra = {} if near_rows is None else {"near_rows": near_rows}
+    picks, fields = line_pass(t0, cmp, picks, paths, params, edits=line_edits,
+                              depth=not params.interval.regularised, **extra)
     qc = {"live_traces": np.array([o.live for o in analysed], dtype=np.int32),
           "nan_traces": np.array([o.dropped_nan for o in analysed], dtype=np.int32),
           "dead_traces": np.array([o.dropped_dead for o in analysed], dtype=np.int32),
           "clipped_traces": np.array([o.clipped for o in analysed], dtype=np.int32),
           "noisy_traces": np.array([o.noisy for o in analysed], dtype=np.int32),
           "path": paths,
-          "water_bottom": sea_floor[rows].astype(np.float64),
-          "water_velocity": water_velocity[rows].astype(np.float64),
-          "skipped_cmp": np.array([o.cmp for o in skipped], dtype=np.int64),
-          "skipped_nan_traces": np.array([o.dropped_nan for o in skipped], dtype=np.int32)}
-    return _assemble(t0, cmp, ix.cmp_x[rows], ix.cmp_y[rows], picks, fields, qc, spectra, attrs, warnings_out)
+          "water_bottom": np.asarray(water_bottom, dtype=np.float64),
+          "water_velocity": np.asarray(water_velocity, dtype=np.float64)}
+    return _assemble(t0, cmp, cmp_x, cmp_y, picks, fields, qc, None, {}, [])
 
 
 def _assemble(t0, cmp, cmp_x, cmp_y, picks, fields: LineFields, qc, spectra, attrs, warnings_out) -> LineAnalysis:
@@ -354,8 +434,9 @@ def _assemble(t0, cmp, cmp_x, cmp_y, picks, fields: LineFields, qc, spectra, att
     return LineAnalysis(cmp=cmp, cmp_x=cmp_x, cmp_y=cmp_y, t0=t0, vrms=fields.vrms, vint=fields.vint,
                         vint_sigma=fields.vint_sigma, vrms_sigma=fields.vrms_sigma, picks=picks, qc=qc,
                         spectra=spectra,
-                        depth=DepthFields(z=fields.z, t0=fields.depth_t0, vint=fields.depth_vint,
-                                          vavg=fields.depth_vavg),
+                        depth=(None if fields.z is None else
+                               DepthFields(z=fields.z, t0=fields.depth_t0, vint=fields.depth_vint,
+                                           vavg=fields.depth_vavg)),
                         regularised=(None if fields.regularised_vint is None else
                                      RegularisedField(vint=fields.regularised_vint, vrms=fields.regularised_vrms)),
                         eta=fields.eta, attrs=attrs, warnings=warnings_out)
@@ -405,7 +486,8 @@ def revise_result(result: LineAnalysis | str | Path, edits: dict | str | Path | 
         edits = read_functions(edits, need_cmp=True)
     run_params = run_params.with_overrides(pick__edits=edit_file, pick__edit_mode=edit_mode).validate()
     picks, fields = line_pass(result.t0, result.cmp, result.picks, np.asarray(result.qc["path"], np.float32),
-                              run_params, edits=edits or None, cmp_x=result.cmp_x)
+                              run_params, edits=edits or None, near_rows=near_rows_of(result_neighbours(result)),
+                              depth=not run_params.interval.regularised)
     attrs = {k: v for k, v in result.attrs.items() if k != "format_version"}
     attrs.update(created=now_utc(), parameters=run_params.to_dict(), velspec_version=__version__,
                  revised_from=source, edited_cmps=int(fields.edited_cmps))
@@ -413,8 +495,12 @@ def revise_result(result: LineAnalysis | str | Path, edits: dict | str | Path | 
                                     "path", "water_bottom",
                                     "water_velocity",
                                     "skipped_cmp", "skipped_nan_traces") if k in result.qc}
-    return _assemble(result.t0, result.cmp, result.cmp_x, result.cmp_y, picks, fields, qc, result.spectra, attrs, [])
+    revised = _assemble(result.t0, result.cmp, result.cmp_x, result.cmp_y, picks, fields, qc, result.spectra, attrs,
+                        [])
+    revised = revised.replace(inline=result.inline, crossline=result.crossline)
+    return regularise_result(revised, run_params)
 
 
-__all__ = ["run_line", "revise_result", "stream_pass", "scan_one", "pick_one", "CmpOutcome", "as_params",
+__all__ = ["run_line", "revise_result", "regularise_result", "analyse_outcomes",
+           "stream_pass", "scan_one", "pick_one", "CmpOutcome", "as_params",
            "MIN_LIVE"]

@@ -662,25 +662,34 @@ def _solve_bounded(system, g, x, lo, hi, tol, maxiter):
     return x, at_lo, at_hi, total, passes, converged
 
 
-def _reference_trend(t_cells, pick_t, pick_v, groups=20):
-    """Squared stacking-velocity trend of the line on the cell times, (km/s)^2.
+def trend_knots(pick_t: np.ndarray, pick_v: np.ndarray, groups: int = 20) -> tuple[np.ndarray, np.ndarray]:
+    """Knots (time s, velocity m/s) of a line's stacking-velocity trend, robust to outlying picks.
 
     Medians of time and velocity in up to ``groups`` groups of equal pick count (of groups with
-    the same median time, the first), linear between them and held beyond: a scale for the
-    priors, robust to outlying picks.
+    the same median time, the first); the trend is linear between them and held beyond. Used
+    only to express the priors of :func:`regularised_dix` in relative terms; a run computes it
+    once from all used picks of the line, so every window of the line has the same priors.
     """
+    pick_t = np.asarray(pick_t, dtype=np.float64)
+    pick_v = np.asarray(pick_v, dtype=np.float64)
     order = np.argsort(pick_t, kind="stable")
     parts = np.array_split(order, min(groups, order.size))
     tk = np.array([np.median(pick_t[i]) for i in parts])
     vk = np.array([np.median(pick_v[i]) for i in parts])
     keep = np.concatenate(([True], np.diff(tk) > 0))
-    v = np.interp(t_cells, tk[keep], vk[keep])
+    return tk[keep], vk[keep]
+
+
+def _reference_trend(t_cells, knots):
+    """Squared stacking-velocity trend on the cell times, (km/s)^2, from :func:`trend_knots`."""
+    v = np.interp(t_cells, knots[0], knots[1])
     return (v * v) * UNIT
 
 
 def regularised_dix(t0: np.ndarray, pick_cmp: np.ndarray, pick_t0: np.ndarray, pick_v: np.ndarray,
                     pick_sigma: np.ndarray, ncmp: int, params: IntervalParams | None = None,
-                    cmp_x: np.ndarray | None = None) -> RegularisedField:
+                    cmp_x: np.ndarray | None = None, breaks: np.ndarray | None = None,
+                    trend: tuple[np.ndarray, np.ndarray] | None = None) -> RegularisedField:
     """Interval velocity of a whole line from its used picks, regularised in time and along it.
 
     One bounded least-squares problem in u = v_int^2 on every (CMP, sample): Dix's integral
@@ -710,6 +719,12 @@ def regularised_dix(t0: np.ndarray, pick_cmp: np.ndarray, pick_t0: np.ndarray, p
     cmp_x : ndarray (ncmp,), optional
         Position of each CMP along the line, m, distinct between neighbouring rows. Without it
         the rows are ``params.cmp_spacing`` apart.
+    breaks : bool ndarray (ncmp - 1,), optional
+        True between rows that are not neighbours (the end of one inline of a 3D grid and the
+        start of the next): no lateral smoothing across them, and their positions may repeat.
+    trend : (ndarray, ndarray), optional
+        The stacking-velocity trend that scales the priors (:func:`trend_knots`); default: from
+        these picks.
 
     Returns
     -------
@@ -762,8 +777,12 @@ def regularised_dix(t0: np.ndarray, pick_cmp: np.ndarray, pick_t0: np.ndarray, p
         if xs.shape != (ncmp,) or not np.all(np.isfinite(xs)):
             raise ValueError(f"cmp_x must hold {ncmp} finite positions, m")
         dist = np.abs(np.diff(xs))
-        if np.any(dist <= 0):
-            raise ValueError("neighbouring CMPs must have distinct cmp_x positions")
+    cut = np.zeros(max(ncmp - 1, 0), dtype=bool) if breaks is None else np.asarray(breaks, dtype=bool)
+    if cut.shape != (max(ncmp - 1, 0),):
+        raise ValueError(f"breaks must hold {max(ncmp - 1, 0)} values, one between each pair of rows")
+    dist = np.where(cut, 1.0, dist)
+    if np.any(dist <= 0):
+        raise ValueError("neighbouring CMPs must have distinct cmp_x positions")
 
     # cells: (t[j-1], t[j]]; a sample at t = 0 has no width and copies the cell below it
     first = 1 if t[0] == 0.0 else 0
@@ -781,7 +800,7 @@ def regularised_dix(t0: np.ndarray, pick_cmp: np.ndarray, pick_t0: np.ndarray, p
     b_obs = pt_s * pv_s * pv_s * UNIT
     pw = 1.0 / (2.0 * pt_s * pv_s * ps_s * UNIT) ** 2
 
-    uref = _reference_trend(tc, pt, pv)
+    uref = _reference_trend(tc, trend_knots(pt, pv) if trend is None else trend)
     upair = 0.5 * (uref[1:] + uref[:-1])
     gap = 0.5 * (dt[1:] + dt[:-1])                      # s between the cells' centres
     wt = np.empty((ncmp, max(n - 1, 0)))
@@ -804,7 +823,7 @@ def regularised_dix(t0: np.ndarray, pick_cmp: np.ndarray, pick_t0: np.ndarray, p
                     step_cells.append(cells)
         step_rows, step_cells = np.concatenate(step_rows), np.concatenate(step_cells)
         wt[step_rows, step_cells] = 1.0 / (2.0 * upair[step_cells] * params.step_variation) ** 2
-    lat = (X_REF / dist) / params.lateral_variation ** 2
+    lat = np.where(cut, 0.0, (X_REF / dist) / params.lateral_variation ** 2)
     cw = (dt / T_REF) / (2.0 * uref) ** 2
 
     system = _System(dt, pstart, pcell, palpha, pw, wt, lat, cw)
@@ -834,7 +853,7 @@ def regularised_dix(t0: np.ndarray, pick_cmp: np.ndarray, pick_t0: np.ndarray, p
                             passes=passes, converged=bool(converged))
 
 
-def depth_from_interval(t0: np.ndarray, vint: np.ndarray, dz: float):
+def depth_from_interval(t0: np.ndarray, vint: np.ndarray, dz: float, z: np.ndarray | None = None):
     """Depth, time, interval and average velocity on a regular depth grid.
 
     Depth below the datum is z(t) = integral of v_int / 2 over two-way time from 0, with the
@@ -850,6 +869,9 @@ def depth_from_interval(t0: np.ndarray, vint: np.ndarray, dz: float):
         Interval velocity in time, m/s, > 0.
     dz : float
         Depth step, m, > 0.
+    z : ndarray (nz,), optional
+        The depth axis, m, when a line is converted a block of CMPs at a time (default: from 0 in
+        steps of ``dz`` to the deepest depth these CMPs reach).
 
     Returns
     -------
@@ -878,7 +900,7 @@ def depth_from_interval(t0: np.ndarray, vint: np.ndarray, dz: float):
         raise ValueError("interval velocities must be finite and > 0 m/s")
     if not (np.isfinite(dz) and dz > 0):
         raise ValueError(f"dz must be > 0 m, got {dz}")
-    z, t_of_z, vint_z = depth_fields(t, v2, float(dz))
+    z, t_of_z, vint_z = depth_fields(t, v2, float(dz), z=z)
     with np.errstate(divide="ignore", invalid="ignore"):
         vavg = np.where(z[None, :] > 0, 2.0 * z[None, :] / t_of_z.astype(np.float64), vint_z)
     vavg = vavg.astype(np.float32)

@@ -139,6 +139,8 @@ class LineAnalysis:
         The line-wide regularised interval field (``/regularised``).
     eta : float32 (ncmp, nt) or None
         Anellipticity field of a nonhyperbolic scan; ``vrms`` then holds the NMO velocity.
+    inline, crossline : int64 (ncmp,) or None
+        Inline and crossline number of each CMP bin of 3D-binned input (None for a 2D line).
     attrs : dict
         Provenance, the file's root attributes: ``parameters`` (dict of every parameter used),
         ``input`` (dict: path, size, checksum ...), ``velspec_version``, ``created``, and
@@ -163,6 +165,8 @@ class LineAnalysis:
     eta: np.ndarray | None = None
     attrs: dict = field(default_factory=dict)
     warnings: list = field(default_factory=list)
+    inline: np.ndarray | None = None
+    crossline: np.ndarray | None = None
 
     @property
     def used(self) -> np.ndarray:

@@ -20,7 +20,7 @@ import h5py
 import numpy as np
 
 from ..errors import InputError
-from ..flags import bit_names
+from ..flags import bit_names, used_mask
 from ..result import PICK_COLUMNS, DepthFields, LineAnalysis, RegularisedField, Spectra, empty_picks
 
 FORMAT_VERSION = 1
@@ -30,6 +30,8 @@ _FIELDS = {
     "cmp": ("1", "numbers of the CMPs analysed, ascending"),
     "cmp_x": ("m", "CMP x coordinate"),
     "cmp_y": ("m", "CMP y coordinate"),
+    "inline": ("1", "inline number of each CMP bin (3D-binned input)"),
+    "crossline": ("1", "crossline number of each CMP bin (3D-binned input)"),
     "t0": ("s", "zero-offset two-way time from the traces' time zero"),
     "vrms": ("m/s", "stacking velocity: best-fit hyperbola over the offsets used; t0*vrms^2 linear between picks"),
     "vint": ("m/s", "constrained Dix interval velocity in time, inside the physical range"),
@@ -108,64 +110,186 @@ def write_result(path: str | Path, result: LineAnalysis, force: bool = False) ->
 
 
 def _write(h5: h5py.File, r: LineAnalysis) -> None:
-    h5.attrs["format_version"] = FORMAT_VERSION
-    for key, value in r.attrs.items():
-        if key == "format_version":
-            continue
-        h5.attrs[key] = json.dumps(value, sort_keys=True) if isinstance(value, dict) else value
-    ncmp, nt = r.vrms.shape
-    axes = {"cmp": _put(h5, "cmp", r.cmp), "t0": _put(h5, "t0", r.t0)}
-    for name in ("cmp", "t0"):
-        axes[name].make_scale(name)
+    writer = ResultWriter(h5, r.cmp.size, r)
+    writer.append(r)
+    if r.depth is not None:
+        writer.start_depth(r.depth.z, vavg=r.depth.vavg is not None)
+        writer.append_depth(0, r.depth.t0, r.depth.vint, r.depth.vavg)
+    writer.finish(r.attrs, r.spectra, {k: v for k, v in r.qc.items() if f"qc/{k}" not in writer.per_row})
 
-    def field(name, value, dims):
-        ds = _put(h5, name, value)
-        for k, axis in enumerate(dims):
-            ds.dims[k].attach_scale(axes[axis])
-            ds.dims[k].label = axis
+
+class ResultWriter:
+    """A result file (format_version 1) filled in blocks of CMPs, so that no field of the whole
+    line is ever in memory: ``velspec run`` writes each block's fields as the line pass makes
+    them. The layout is the one :func:`write_result` writes (it uses this writer too).
+
+    Parameters
+    ----------
+    h5 : h5py.File
+        Open for writing, empty.
+    nrows : int
+        CMPs the result will have.
+    first : LineAnalysis
+        A part of the result (any block of CMPs): it says which fields, QC arrays and pick
+        columns there are and their types.
+    chunk_rows : int
+        CMPs per HDF5 chunk of the (CMP, ...) fields (default 64).
+    regularised : bool
+        Make room for the regularised field and the picks' misfit even if ``first`` has none
+        (a streamed run writes them after the other fields, :meth:`put_rows`).
+
+    Notes
+    -----
+    Call :meth:`append` for consecutive blocks, :meth:`start_depth` and :meth:`append_depth`
+    for the depth fields, then :meth:`finish`, which writes the root attributes (the
+    ``format_version`` last).
+    """
+
+    def __init__(self, h5: h5py.File, nrows: int, first: LineAnalysis, chunk_rows: int = 64,
+                 regularised: bool = False):
+        self.h5, self.nrows, self.chunk_rows = h5, int(nrows), int(chunk_rows)
+        self.row = 0
+        self.npick = 0
+        self.nt = first.t0.size
+        self.axes = {"cmp": self._new("cmp", (self.nrows,), np.int64), "t0": _put(h5, "t0", first.t0)}
+        for name in ("cmp", "t0"):
+            self.axes[name].make_scale(name)
+        self.per_row: dict[str, str] = {}   # dataset name -> where in a part it comes from
+        rows = first.cmp.size
+
+        def per_row(name, value, source):
+            value = np.asarray(value)
+            ds = self._new(name, (self.nrows, *value.shape[1:]), value.dtype)
+            dims = ("cmp", "t0") if value.ndim == 2 and value.shape[1] == self.nt else ("cmp",)[: value.ndim]
+            for k, axis in enumerate(dims):
+                ds.dims[k].attach_scale(self.axes[axis])
+                ds.dims[k].label = axis
+            self.per_row[name] = source
+
+        for name in ("cmp_x", "cmp_y", "vrms", "vint", "vint_sigma", "vrms_sigma"):
+            if getattr(first, name) is not None:
+                per_row(name, getattr(first, name), name)
+        if first.eta is not None:
+            per_row("eta", first.eta, "eta")
+        for name in ("inline", "crossline"):
+            if getattr(first, name, None) is not None:
+                per_row(name, getattr(first, name), name)
+        for name, value in first.qc.items():
+            value = np.asarray(value)
+            if value.ndim >= 1 and value.shape[0] == rows and not name.startswith("skipped"):
+                per_row(f"qc/{name}", value, f"qc:{name}")
+        has_regularised = regularised or first.regularised is not None
+        if has_regularised:
+            for name in ("vint", "vrms"):
+                per_row(f"regularised/{name}", first.vint, f"regularised:{name}")
+        absent = {"eta"} if first.eta is None else set()
+        absent |= {"misfit"} if not has_regularised else set()
+        self.columns = [name for name, _, _, _ in PICK_COLUMNS if name not in absent]
+        for name in self.columns:
+            ds = self._new(f"picks/{name}", (0,), first.picks.dtype[name], grow=True)
+            if name == "flags":
+                ds.attrs["bits"] = json.dumps(bit_names())
+        self._new("picks/used", (0,), np.uint8, grow=True)
+
+    def _new(self, name: str, shape: tuple, dtype, grow: bool = False) -> h5py.Dataset:
+        big = len(shape) >= 2 and int(np.prod(shape)) > 4096
+        if grow:
+            ds = self.h5.create_dataset(name, shape=shape, maxshape=(None,), dtype=dtype, chunks=(16384,))
+        else:
+            chunks = (max(1, min(self.chunk_rows, shape[0])), *shape[1:]) if big else None
+            # gzip is readable by every HDF5 tool; level 1 with byte shuffling keeps most of the
+            # gain on smooth velocity fields at a fraction of the time of higher levels.
+            ds = self.h5.create_dataset(name, shape=shape, dtype=dtype, chunks=chunks,
+                                        compression="gzip" if big else None,
+                                        compression_opts=1 if big else None, shuffle=big)
+        _describe(ds, name)
         return ds
 
-    for name in ("cmp_x", "cmp_y"):
-        field(name, getattr(r, name), ("cmp",))
-    for name in ("vrms", "vint", "vint_sigma", "vrms_sigma"):
-        if getattr(r, name) is not None:
-            field(name, getattr(r, name), _AXES_CMP_T0)
-    if r.eta is not None:
-        field("eta", r.eta, _AXES_CMP_T0)
+    def _source(self, part: LineAnalysis, source: str):
+        if source.startswith("qc:"):
+            return part.qc[source[3:]]
+        if source.startswith("regularised:"):
+            return getattr(part.regularised, source.split(":")[1])
+        return getattr(part, source)
 
-    nonhyperbolic = r.eta is not None
-    for name, _, _, _ in PICK_COLUMNS:
-        if (name == "eta" and not nonhyperbolic) or (name == "misfit" and r.regularised is None):
-            continue
-        ds = _put(h5, f"picks/{name}", np.ascontiguousarray(r.picks[name]))
-        if name == "flags":
-            ds.attrs["bits"] = json.dumps(bit_names())
-    _put(h5, "picks/used", r.used.astype(np.uint8))
+    def append(self, part: LineAnalysis, rows: slice | None = None) -> None:
+        """Write the CMPs ``rows`` of ``part`` (default all) after those already written, with
+        their picks."""
+        rows = rows or slice(0, part.cmp.size)
+        cmp = part.cmp[rows]
+        n = cmp.size
+        a, b = self.row, self.row + n
+        if b > self.nrows:
+            raise ValueError(f"{b} CMPs appended to a result of {self.nrows}")
+        self.h5["cmp"][a:b] = cmp
+        for name, source in self.per_row.items():
+            if source.startswith("regularised:") and part.regularised is None:
+                continue     # written later (put_rows)
+            self.h5[name][a:b] = np.asarray(self._source(part, source))[rows]
+        lo, hi = np.searchsorted(part.picks["cmp"], [cmp[0], cmp[-1] + 1]) if n else (0, 0)
+        picks = part.picks[lo:hi]
+        m = self.npick + picks.size
+        for name in self.columns:
+            ds = self.h5[f"picks/{name}"]
+            ds.resize((m,))
+            ds[self.npick:m] = picks[name]
+        ds = self.h5["picks/used"]
+        ds.resize((m,))
+        ds[self.npick:m] = used_mask(picks["flags"]).astype(np.uint8)
+        self.row, self.npick = b, m
 
-    for name, value in r.qc.items():
-        value = np.asarray(value)
-        if value.shape == (ncmp, nt):
-            field(f"qc/{name}", value, _AXES_CMP_T0)
-        elif value.shape == (ncmp,) and not name.startswith("skipped"):
-            field(f"qc/{name}", value, ("cmp",))
-        else:
-            _put(h5, f"qc/{name}", value)
+    def put_rows(self, name: str, start: int, value: np.ndarray) -> None:
+        """Write ``value`` into the per-CMP dataset ``name`` from row ``start`` on (fields filled
+        after the others: the regularised field of a streamed run)."""
+        self.h5[name][start:start + len(value)] = value
 
-    if r.spectra is not None:
-        axes["spectra/cmp"] = _put(h5, "spectra/cmp", r.spectra.cmp)
-        axes["spectra/velocity"] = _put(h5, "spectra/velocity", r.spectra.velocity)
-        axes["spectra/cmp"].make_scale("cmp of the kept panel")
-        axes["spectra/velocity"].make_scale("trial stacking velocity")
-        field("spectra/coherence", r.spectra.coherence, ("spectra/cmp", "spectra/velocity", "t0"))
-    if r.depth is not None:
-        axes["depth/z"] = _put(h5, "depth/z", r.depth.z)
-        axes["depth/z"].make_scale("depth")
-        for name in ("t0", "vint", "vavg"):
-            if getattr(r.depth, name) is not None:
-                field(f"depth/{name}", getattr(r.depth, name), ("cmp", "depth/z"))
-    if r.regularised is not None:
-        for name in ("vint", "vrms"):
-            field(f"regularised/{name}", getattr(r.regularised, name), _AXES_CMP_T0)
+    def start_depth(self, z: np.ndarray, vavg: bool = False) -> None:
+        """Create the depth fields on the depth axis ``z`` (m)."""
+        self.axes["depth/z"] = _put(self.h5, "depth/z", z)
+        self.axes["depth/z"].make_scale("depth")
+        for name in ("t0", "vint") + (("vavg",) if vavg else ()):
+            ds = self._new(f"depth/{name}", (self.nrows, np.asarray(z).size), np.float32)
+            for k, axis in enumerate(("cmp", "depth/z")):
+                ds.dims[k].attach_scale(self.axes[axis])
+                ds.dims[k].label = axis
+
+    def append_depth(self, start: int, t0: np.ndarray, vint: np.ndarray, vavg: np.ndarray | None = None) -> None:
+        """Write the depth fields of the CMPs from row ``start`` on."""
+        stop = start + len(t0)
+        self.h5["depth/t0"][start:stop] = t0
+        self.h5["depth/vint"][start:stop] = vint
+        if vavg is not None:
+            self.h5["depth/vavg"][start:stop] = vavg
+
+    def finish(self, attrs: dict, spectra: Spectra | None, line_qc: dict) -> None:
+        """Write the kept panels, the line-wide QC arrays and the root attributes; the file is then
+        complete (``format_version`` is written last)."""
+        if self.row != self.nrows:
+            raise ValueError(f"{self.row} of {self.nrows} CMPs written")
+        for name, value in line_qc.items():
+            _put(self.h5, f"qc/{name}", value)
+        if spectra is not None:
+            axes = self.axes
+            axes["spectra/cmp"] = _put(self.h5, "spectra/cmp", spectra.cmp)
+            axes["spectra/velocity"] = _put(self.h5, "spectra/velocity", spectra.velocity)
+            axes["spectra/cmp"].make_scale("cmp of the kept panel")
+            axes["spectra/velocity"].make_scale("trial stacking velocity")
+            ds = _put(self.h5, "spectra/coherence", spectra.coherence)
+            for k, axis in enumerate(("spectra/cmp", "spectra/velocity", "t0")):
+                ds.dims[k].attach_scale(axes[axis])
+                ds.dims[k].label = axis
+        for key, value in attrs.items():
+            if key == "format_version":
+                continue
+            self.h5.attrs[key] = json.dumps(value, sort_keys=True) if isinstance(value, dict) else value
+        self.h5.attrs["format_version"] = FORMAT_VERSION
+
+
+def _describe(ds: h5py.Dataset, name: str) -> None:
+    units, meaning = _FIELDS.get(name) or _PICKS.get(name) or ("1", "")
+    ds.attrs["units"] = units
+    if meaning:
+        ds.attrs["description"] = meaning
 
 
 def _put(h5: h5py.File, name: str, value) -> h5py.Dataset:
@@ -175,10 +299,7 @@ def _put(h5: h5py.File, name: str, value) -> h5py.Dataset:
     # on smooth velocity fields at a fraction of the time of higher levels.
     ds = h5.create_dataset(name, data=value, compression="gzip" if big else None,
                            compression_opts=1 if big else None, shuffle=big)
-    units, meaning = _FIELDS.get(name) or _PICKS.get(name) or ("1", "")
-    ds.attrs["units"] = units
-    if meaning:
-        ds.attrs["description"] = meaning
+    _describe(ds, name)
     return ds
 
 
@@ -251,4 +372,5 @@ def _from_datasets(d: dict, attrs: dict) -> LineAnalysis:
         vint_sigma=(vint_sigma if vint_sigma is not None else np.full_like(vrms, np.nan)),
         picks=picks, vrms_sigma=d.get("vrms_sigma"),
         qc={k.split("/", 1)[1]: v for k, v in d.items() if k.startswith("qc/")},
-        spectra=spectra, depth=depth, regularised=regularised, eta=d.get("eta"), attrs=attrs)
+        spectra=spectra, depth=depth, regularised=regularised, eta=d.get("eta"), attrs=attrs,
+        inline=d.get("inline"), crossline=d.get("crossline"))

@@ -76,6 +76,8 @@ class CmpIndex:
     cmp_y: np.ndarray      # (ncmp,) float64 metres
     offset_source: str     # "header", "coordinates" or "header+coordinates"
     binned: bool           # True when CMPs were binned from midpoints (CDP header all zero)
+    inline: np.ndarray | None = None      # (ncmp,) int64 inline of each bin (3D geometry), else None
+    crossline: np.ndarray | None = None   # (ncmp,) int64 crossline of each bin (3D geometry), else None
 
     @property
     def fold(self) -> np.ndarray:
@@ -176,6 +178,9 @@ class SegyLine:
                   "cdp": (hb.cdp, 4), "offset": (hb.offset, 4), "scalar": (hb.coordinate_scalar, 2),
                   "sx": (hb.source_x, 4), "sy": (hb.source_y, 4), "gx": (hb.group_x, 4), "gy": (hb.group_y, 4),
                   "cx": (hb.cdp_x, 4), "cy": (hb.cdp_y, 4)}
+        grid = self.params.geometry == "3d"
+        if grid:
+            fields.update(il=(hb.inline, 4), xl=(hb.crossline, 4))
         h = self._scan_file(fields)
         tr_ns, tr_dt, delay, trace_id = h["ns"], h["dt"], h["delay"], h["id"]
         cdp, off, scalar = h["cdp"], h["offset"], h["scalar"]
@@ -212,7 +217,9 @@ class SegyLine:
 
         mid_x, mid_y = (sx + gx) / 2, (sy + gy) / 2
         binned = False
-        if not np.any(cdp):
+        if grid:
+            cdp = self._grid_bins(h["il"], h["xl"])
+        elif not np.any(cdp):
             if not have_coords:
                 raise InputError(f"{self.path}: CDP numbers (byte {hb.cdp}) and source/group coordinates "
                                  f"(bytes {hb.source_x}/{hb.source_y}/{hb.group_x}/{hb.group_y}) are all "
@@ -234,6 +241,21 @@ class SegyLine:
         self.index = CmpIndex(cmp=numbers.astype(np.int64), start=start, order=order.astype(np.int64),
                               offset=offset.astype(np.float32), cmp_x=cmp_x, cmp_y=cmp_y,
                               offset_source=source, binned=binned)
+        if grid:
+            first = order[start[:-1]]
+            self.index.inline = h["il"][first].astype(np.int64)
+            self.index.crossline = h["xl"][first].astype(np.int64)
+
+    def _grid_bins(self, il: np.ndarray, xl: np.ndarray) -> np.ndarray:
+        """Bin numbers of 3D-binned traces: 1 + the bin's place on the inline x crossline grid,
+        inline by inline, so that ascending numbers run along each inline in turn."""
+        hb = self.params.headers
+        if not (np.any(il) or np.any(xl)):
+            raise InputError(f"{self.path}: inline and crossline numbers (bytes {hb.inline}/{hb.crossline}) are "
+                             "zero on every trace; give their byte positions in [read.headers] or set "
+                             "read.geometry = '2d'")
+        width = int(xl.max() - xl.min()) + 1
+        return (il - il.min()) * width + (xl - xl.min()) + 1
 
     def _scan_file(self, fields: dict[str, tuple[int, int]]) -> dict[str, np.ndarray]:
         """One sequential pass over the file for the given trace-header fields.
@@ -358,6 +380,19 @@ class SegyLine:
         if getattr(self, "_fd", None) is not None:
             os.close(self._fd)
             self._fd = None
+
+    def __getstate__(self) -> dict:
+        # sent to the workers of a cluster: the header index travels, the open file does not
+        state = dict(self.__dict__)
+        state["_fd"] = None
+        return state
+
+    def __setstate__(self, state: dict) -> None:
+        self.__dict__.update(state)
+        if not self.path.is_file() or self.path.stat().st_size != self.size:
+            raise InputError(f"{self.path}: not the line the run was started on (missing, or another size, "
+                             "here); every worker must read the same file at the same path (shared storage)")
+        self._fd = os.open(self.path, os.O_RDONLY)
 
     def __enter__(self) -> SegyLine:
         return self
