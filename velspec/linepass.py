@@ -320,8 +320,8 @@ def line_pass(t0: np.ndarray, cmp: np.ndarray, picks: np.ndarray, paths: np.ndar
                              depth_t0=t_of_z, depth_vint=vint_z, edited_cmps=changed)
 
 
-REG_WINDOW = 256   # CMPs whose regularised field one solve gives
-REG_HALO = 64      # CMPs either side of a window whose picks the solve sees as well
+REG_WINDOW = 128   # CMPs whose regularised field one solve gives
+REG_HALO = 48      # CMPs either side of a window whose picks the solve sees as well
 
 
 def regularised_windows(nrows: int):
