@@ -136,11 +136,31 @@ def test_smoothing_changes_the_picks(block_runs):
 
 # -- quality per CMP -----------------------------------------------------------------------
 
-def test_quality_of_a_run_is_0_1_or_2(block_runs):
-    runs, _ = block_runs
-    q = runs[16].qc["quality"]
-    assert q.dtype == np.uint8 and q.shape == (len(runs[16].cmp),)
-    assert set(np.unique(q).tolist()) <= {0, 1, 2}
+def test_quality_marks_the_cmps_known_to_be_bad(tmp_path):
+    # CMPs 12-23 of a 36-CMP line hold nothing but noise (every trace replaced by Gaussian noise
+    # of the line's own RMS amplitude): there is nothing to pick, so beyond the reach of the
+    # panel smoothing from the clean CMPs they must be graded poor, and the clean CMPs away
+    # from them good (common practice, no source: a grade follows the evidence of the data).
+    import segyio
+
+    path = tmp_path / "line.sgy"
+    make_line(path, LineSpec(ncmp=36, snr=4.0, nsamples=600, seed=11))
+    rng = np.random.default_rng(3)
+    with segyio.open(path, "r+", ignore_geometry=True) as f:
+        cdp = f.attributes(segyio.TraceField.CDP)[:]
+        first = int(cdp.min())
+        rms = float(np.sqrt(np.mean(np.square(f.trace.raw[:]))))
+        for i in np.flatnonzero((cdp >= first + 12) & (cdp <= first + 23)):
+            f.trace[int(i)] = rng.normal(0.0, rms, f.samples.size).astype(np.float32)
+    result = run_line(path)
+    q = result.qc["quality"]
+    rows = result.cmp - first
+    half = RunParams().pick.smooth_cmps
+    inner_bad = (rows >= 12 + half) & (rows <= 23 - half)
+    clean = (rows < 12 - 2 * half) | (rows > 23 + 2 * half)
+    assert inner_bad.sum() == 12 - 2 * half and clean.sum() >= 16
+    assert np.all(q[inner_bad] == 2), q
+    assert np.mean(q[clean] == 0) >= 0.8, q
 
 
 def test_cmp_with_every_pick_excluded_is_poor():
