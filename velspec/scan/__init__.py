@@ -37,7 +37,8 @@ MEASURES: dict[str, Measure] = {
         bounded=False),
     "weighted-semblance": Measure(
         measures.weighted_semblance,
-        "AB semblance with each sample weighted by its fit, narrower peaks (Luo & Hale, 2012)"),
+        "experimental: AB semblance with each sample weighted by its fit, narrower peaks (in the "
+        "spirit of Luo & Hale, 2012; not checked against their published definition)"),
 }
 
 
