@@ -150,7 +150,7 @@ def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrm
     if pp.lateral_cmps == 0 or len(slices) < 3:
         return []
     k = pp.lateral_cmps
-    used_t = [picks["t0"][s][used_mask(picks["flags"][s])] for s in slices]
+    used_t = [np.sort(picks["t0"][s][used_mask(picks["flags"][s])]) for s in slices]
     reach = SUPPORT * pp.min_separation
     flagged = []
     for row, rows in enumerate(slices):
@@ -168,19 +168,39 @@ def lateral_outliers(t0: np.ndarray, picks: np.ndarray, slices: list[slice], vrm
             values = near[:, cols]
         else:
             values = np.stack([np.interp(p["t0"], t0, f) for f in near])
-        supported = np.stack([np.array([used_t[j].size > 0 and np.min(np.abs(used_t[j] - t)) <= reach
-                                        for t in p["t0"]]) for j in near_idx])
+        supported = np.stack([_within(used_t[j], p["t0"], reach) for j in near_idx])
         supported[near_idx == row] = False    # the CMP itself is no witness
-        enough = supported.sum(axis=0) >= MIN_NEIGHBOURS
+        count = supported.sum(axis=0)
+        enough = count >= MIN_NEIGHBOURS
         ref = np.zeros(p.size)
         if enough.any():
-            ref[enough] = np.nanmedian(np.where(supported, values, np.nan)[:, enough], axis=0)
+            ref[enough] = _masked_median(values, supported, count)[enough]
         dev = np.abs(p["vrms"] - ref)
         bad = (candidate & enough & (dev > pp.outlier_tolerance * ref) & (dev > pp.outlier_sigmas * p["sigma"]))
         if bad.any():
             picks["flags"][np.arange(rows.start, rows.stop)[bad]] |= int(Flag.lateral_outlier)
             flagged.append(row)
     return flagged
+
+
+def _within(sorted_t: np.ndarray, t: np.ndarray, reach: float) -> np.ndarray:
+    """For each time of ``t``: is one of ``sorted_t`` (ascending) within ``reach`` of it?"""
+    if sorted_t.size == 0:
+        return np.zeros(t.size, dtype=bool)
+    k = np.searchsorted(sorted_t, t)
+    below = np.abs(t - sorted_t[np.maximum(k - 1, 0)])
+    above = np.abs(sorted_t[np.minimum(k, sorted_t.size - 1)] - t)
+    return np.minimum(below, above) <= reach
+
+
+def _masked_median(values: np.ndarray, mask: np.ndarray, count: np.ndarray) -> np.ndarray:
+    """Median of each column of ``values`` over the rows where ``mask`` holds (``count`` of
+    them, >= 1 where the answer is used), as ``np.nanmedian`` computes it in the values' type
+    (the mean of the two middle values for an even count)."""
+    s = np.sort(np.where(mask, values, np.inf), axis=0)
+    cols = np.arange(values.shape[1])
+    c = np.maximum(count, 1)
+    return (s[(c - 1) // 2, cols] + s[c // 2, cols]) / 2
 
 
 def cmp_quality(p: np.ndarray, fallback: bool, forced_count: int, params: RunParams,
