@@ -89,23 +89,23 @@ def water_bottom_time(data: np.ndarray, offsets: np.ndarray, dt: float, t_first:
     inside = x[:, None] <= reach[None, :]
     sem = np.zeros((vels.size, t0.size))
     amp = np.zeros(t0.size)
-    envelope = np.zeros(t0.size)
     live = np.maximum(inside.sum(axis=0), 1)
-    for m, v in enumerate(vels):
-        times = np.sqrt(t0[None, :] ** 2 + (x[:, None] / v) ** 2)
-        # every trace at once: fractional sample positions into the flattened traces
-        pos = np.clip((times - t_first) / dt, 0.0, ns - 1.000001)
-        k0 = pos.astype(np.int64)
-        frac = pos - k0
-        flat = data.ravel()
-        base = (np.arange(ntr) * ns)[:, None]
-        a = (flat[base + k0] * (1.0 - frac) + flat[base + k0 + 1] * frac) * (inside & (times <= t[-1]))
-        stack = a.sum(axis=0)
-        num = np.convolve(stack * stack, box, mode="same")
-        den = np.convolve(live * (a * a).sum(axis=0), box, mode="same")
+    # every trial velocity and trace at once: fractional sample positions into the flat traces
+    times = np.sqrt(t0[None, None, :] ** 2 + (x[None, :, None] / vels[:, None, None]) ** 2)
+    pos = np.clip((times - t_first) / dt, 0.0, ns - 1.000001)
+    k0 = pos.astype(np.int64)
+    frac = pos - k0
+    flat = data.ravel()
+    base = (np.arange(ntr) * ns)[None, :, None]
+    a = (flat[base + k0] * (1.0 - frac) + flat[base + k0 + 1] * frac) * (inside[None] & (times <= t[-1]))
+    stacks = a.sum(axis=1)
+    energies = (a * a).sum(axis=1)
+    for m in range(vels.size):
+        num = np.convolve(stacks[m] * stacks[m], box, mode="same")
+        den = np.convolve(live * energies[m], box, mode="same")
         sem[m] = np.where(den > 0, num / np.where(den > 0, den, 1.0), 0.0)
         amp = np.maximum(amp, np.sqrt(num / box.size) / live)
-        envelope = np.maximum(envelope, np.abs(hilbert(stack)) / live)
+    envelope = (np.abs(hilbert(stacks, axis=1)) / live).max(axis=0)
     if not amp.max() > 0:
         return none
     best = sem.argmax(axis=0)
