@@ -185,6 +185,7 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
         return
     scan_lo, scan_hi = hood.first(lo, half), hood.last(hi - 1, half) + 1
     pending: dict[int, _Scanned] = {}   # scanned items by number; those below `nxt` are picked
+    profiles: dict[int, np.ndarray] = {}   # the smoothing's window profiles of pending panels
     nxt = lo
 
     def ready(upto: float):
@@ -194,7 +195,8 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
             if item.panel is not None:
                 near, dist = hood.near(nxt, half)
                 panel = smoothed_panel([pending[j].panel for j in near], dist, int(np.flatnonzero(near == nxt)[0]),
-                                       half, velocities=velocities, step_scale=params.pick.smooth_step, dt=line.dt)
+                                       half, velocities=velocities, step_scale=params.pick.smooth_step, dt=line.dt,
+                                       keys=[int(j) for j in near], cache=profiles)
                 pick_one(item.outcome, item.gather, panel, item.best_eta, times, params, velocities,
                          guide_for(item.outcome.cmp),
                          None if sea_floor is None else tuple(map(float, sea_floor[item.position])))
@@ -207,6 +209,7 @@ def stream_pass(line: SegyLine, params: RunParams, positions: np.ndarray | None 
         first_needed = hood.first(nxt, half) if nxt < hi else np.inf
         for j in [j for j in pending if j < first_needed]:
             del pending[j]
+            profiles.pop(j, None)
 
     conditioned = _Conditioned(line, params, None if sea_floor is None else sea_floor[:, 0])
     starts = range(scan_lo, scan_hi, params.block)

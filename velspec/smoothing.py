@@ -14,7 +14,7 @@ from numba import njit, prange
 
 def smoothed_panel(panels: list, positions: np.ndarray, centre: int, half: int, *,
                    velocities: np.ndarray | None = None, step_scale: float = 0.0,
-                   dt: float = 0.004) -> np.ndarray:
+                   dt: float = 0.004, keys: list | None = None, cache: dict | None = None) -> np.ndarray:
     """Triangle-weighted mean of the panels within +-``half`` positions of ``panels[centre]``.
 
     Parameters
@@ -37,6 +37,10 @@ def smoothed_panel(panels: list, positions: np.ndarray, centre: int, half: int, 
         at other velocities, drops out instead of smearing the step.
     dt : float
         Sample interval of the panels' t0 axis, s.
+    keys, cache : list and dict, optional
+        A key per panel and a dict the caller keeps between calls: each panel's window profiles
+        (:func:`panel_shift`) are computed once and kept there under its key, instead of once
+        per neighbour it serves (the caller forgets the keys of panels it drops).
 
     Returns
     -------
@@ -45,12 +49,13 @@ def smoothed_panel(panels: list, positions: np.ndarray, centre: int, half: int, 
     me = panels[centre]
     if half == 0:
         return me
-    chosen, weights = [], []
-    for panel, pos in zip(panels, positions):
+    chosen, weights, chosen_keys = [], [], []
+    for n, (panel, pos) in enumerate(zip(panels, positions)):
         d = abs(int(pos) - int(positions[centre]))
         if panel is not None and d <= half:
             chosen.append(panel)
             weights.append(float(half + 1 - d))
+            chosen_keys.append(None if keys is None else keys[n])
     if len(chosen) == 1:
         return me
     w = np.asarray(weights)
@@ -60,8 +65,19 @@ def smoothed_panel(panels: list, positions: np.ndarray, centre: int, half: int, 
         win = max(int(round(WINDOW / dt)), 8)
         edges = np.unique(np.append(np.arange(0, nt, win), nt)).astype(np.int64)
         per = np.empty((len(chosen), edges.size - 1))
+
+        def profile(k):
+            key = chosen_keys[k]
+            if cache is None or key is None:
+                return _profiles(np.ascontiguousarray(chosen[k], dtype=np.float32), edges)
+            if key not in cache:
+                cache[key] = _profiles(np.ascontiguousarray(chosen[k], dtype=np.float32), edges)
+            return cache[key]
+
+        mine = next(k for k, panel in enumerate(chosen) if panel is me)
         for k, panel in enumerate(chosen):
-            s = 0.0 if panel is me else panel_shift(me, panel, velocities, edges)
+            s = 0.0 if panel is me else _shifts(profile(mine), profile(k),
+                                                np.ascontiguousarray(velocities, dtype=np.float64), MAX_SHIFT)
             per[k] = w[k] * np.exp(-(np.asarray(s) / step_scale) ** 2)
         per /= per.sum(axis=0, keepdims=True)
         # weights linear in t0 between the windows' centres, so the panel has no seams
